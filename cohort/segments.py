@@ -141,6 +141,4 @@ def segment_model(name: str) -> SegmentModel:
     try:
         return MODELS[name]
     except KeyError:
-        raise ValueError(
-            f"segment model must be one of {sorted(MODELS)}, got {name!r}"
-        ) from None
+        raise ValueError(f"segment model must be one of {sorted(MODELS)}, got {name!r}") from None

@@ -1,0 +1,110 @@
+"""The ``cohort`` command: a thin layer over the Python API.
+
+Exit status: 0 when the study is usable, 2 on invalid input (problems on stderr, no
+traceback), 1 on an unexpected internal failure.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from collections.abc import Sequence
+
+from .problems import StudyError, format_problems
+from .settings import StudySettings, build_settings, read_study_file
+from .study import load_study
+
+CAUTION = (
+    "Research use only: not a diagnostic device. Thresholds and defaults need local "
+    "validation; defer to local clinical practice and licensed professionals."
+)
+
+
+def _add_study_arguments(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("study", nargs="?", help="study file (study.toml)")
+    flags = parser.add_argument_group("without a study file")
+    flags.add_argument("--values", help="values table (CSV, TSV, XLSX or Parquet)")
+    flags.add_argument("--subjects", help="subjects table (CSV, TSV, XLSX or Parquet)")
+    flags.add_argument("--reference", help="name of the reference method")
+    flags.add_argument("--groups", help="comma-separated group names, in display order")
+    flags.add_argument("--segment-model", default=None, choices=("aha17", "aha16"))
+    flags.add_argument("--ff-unit", default=None, choices=("percent", "fraction"))
+    flags.add_argument("--field-unit", default=None, choices=("Hz", "ppm"))
+    flags.add_argument(
+        "--field-referencing", default=None, choices=("none", "subject-median", "remote")
+    )
+    flags.add_argument("--remote-segments", help="comma-separated segment numbers")
+
+
+def settings_from_args(args: argparse.Namespace) -> StudySettings:
+    """Settings from a study file, or from flags; flags given beside a file are refused."""
+    flag_values = {
+        "values": args.values,
+        "subjects": args.subjects,
+        "reference": args.reference,
+        "groups": args.groups,
+        "segment_model": args.segment_model,
+        "ff_unit": args.ff_unit,
+        "field_unit": args.field_unit,
+        "field_referencing": args.field_referencing,
+        "remote_segments": args.remote_segments,
+    }
+    given = {k: v for k, v in flag_values.items() if v is not None}
+    if args.study:
+        if given:
+            raise SystemExit(
+                "cohort: give either a study file or the flags "
+                f"({', '.join('--' + k.replace('_', '-') for k in given)}), not both"
+            )
+        return read_study_file(args.study)
+    missing = [k for k in ("values", "subjects", "reference") if k not in given]
+    if missing:
+        raise SystemExit(
+            "cohort: give a study file, or all of " + ", ".join("--" + k for k in missing)
+        )
+    groups = tuple(g for g in (given.pop("groups", "") or "").split(",") if g.strip())
+    remote = tuple(s for s in (given.pop("remote_segments", "") or "").split(",") if s.strip())
+    return build_settings(groups=groups, remote_segments=remote, **given)
+
+
+def cmd_check(args: argparse.Namespace) -> int:
+    settings = settings_from_args(args)
+    study = load_study(settings)
+    print(study.summary())
+    print(f"\nThe study is usable. {CAUTION}")
+    return 0
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="cohort",
+        description="Cohort statistics for myocardial multi-echo mapping studies. " + CAUTION,
+    )
+    from . import __version__
+
+    parser.add_argument("--version", action="version", version=f"cohort {__version__}")
+    sub = parser.add_subparsers(dest="command", required=True)
+    check = sub.add_parser("check", help="validate a study and print a summary; writes nothing")
+    _add_study_arguments(check)
+    check.set_defaults(func=cmd_check)
+    return parser
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    try:
+        return args.func(args)
+    except StudyError as exc:
+        print(format_problems(exc.problems), file=sys.stderr)
+        print("\nThe study is not usable; nothing was written.", file=sys.stderr)
+        return 2
+    except SystemExit as exc:
+        if isinstance(exc.code, str):
+            print(exc.code, file=sys.stderr)
+            return 2
+        raise
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

@@ -1,0 +1,180 @@
+"""Reading input tables from disk: the I/O edge of the loader.
+
+Every cell is read as text (nothing is converted, so ``0017`` stays ``0017`` and a value that
+is not a number can be reported exactly as written). Column names are trimmed and
+lower-cased. Each row keeps its spreadsheet row number in the column ``_row`` (header = row 1).
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import pandas as pd
+
+from .problems import Problem, StudyError
+
+ROW = "_row"
+"""Column holding each row's spreadsheet row number."""
+
+READERS = {".csv": "csv", ".tsv": "tsv", ".txt": "tsv", ".xlsx": "xlsx", ".parquet": "parquet"}
+
+
+@dataclass
+class RawTable:
+    """A table as read: text cells, normalised column names, row numbers, source name."""
+
+    frame: pd.DataFrame
+    name: str
+    original_columns: dict[str, str] = field(default_factory=dict)
+    warnings: list[Problem] = field(default_factory=list)
+
+
+def _normalise_columns(frame: pd.DataFrame, name: str) -> tuple[pd.DataFrame, dict[str, str]]:
+    original = {}
+    normalised = []
+    problems = []
+    for column in frame.columns:
+        key = str(column).strip().lower()
+        if key in original:
+            problems.append(
+                Problem(
+                    "duplicate-column",
+                    f"column '{key}' appears twice (as {original[key]!r} and {column!r})",
+                    file=name,
+                    row=1,
+                    column=str(column),
+                )
+            )
+        original[key] = str(column)
+        normalised.append(key)
+    if problems:
+        raise StudyError(problems)
+    frame = frame.copy()
+    frame.columns = normalised
+    return frame, original
+
+
+def read_table(path: str | Path) -> RawTable:
+    """Read a CSV, TSV, XLSX or Parquet file into text cells; raise :class:`StudyError`."""
+    path = Path(path)
+    name = path.name
+    if not path.is_file():
+        raise StudyError([Problem("file-missing", "file not found", file=str(path))])
+    kind = READERS.get(path.suffix.lower())
+    if kind is None:
+        raise StudyError(
+            [
+                Problem(
+                    "file-format",
+                    "file type not supported",
+                    file=str(path),
+                    value=path.suffix,
+                    expected=f"one of {sorted(READERS)}",
+                )
+            ]
+        )
+    warnings: list[Problem] = []
+    try:
+        if kind in ("csv", "tsv"):
+            frame = _read_delimited(path, "," if kind == "csv" else "\t")
+        elif kind == "xlsx":
+            sheets = pd.read_excel(path, sheet_name=None, dtype=str, keep_default_na=False)
+            if not sheets:
+                raise StudyError([Problem("file-empty", "workbook has no sheets", file=name)])
+            first = next(iter(sheets))
+            if len(sheets) > 1:
+                warnings.append(
+                    Problem(
+                        "extra-sheets",
+                        f"read sheet '{first}', ignored {list(sheets)[1:]}",
+                        file=name,
+                        severity="warning",
+                    )
+                )
+            frame = sheets[first]
+        else:
+            frame = pd.read_parquet(path)
+            frame = frame.astype(object).where(frame.notna(), "").astype(str)
+    except StudyError:
+        raise
+    except Exception as exc:  # any reader failure becomes a located problem
+        raise StudyError(
+            [Problem("file-unreadable", f"cannot read file: {exc}", file=str(path))]
+        ) from None
+    numbers = frame.attrs.get("rows", range(2, len(frame) + 2))
+    frame, original = _normalise_columns(frame, name)
+    frame = frame.fillna("").astype(str)
+    if frame.empty:
+        raise StudyError([Problem("file-empty", "file has no data rows", file=name)])
+    frame.insert(0, ROW, list(numbers))
+    return RawTable(frame, name, original, warnings)
+
+
+def _read_delimited(path: Path, delimiter: str) -> pd.DataFrame:
+    name = path.name
+    try:
+        text = path.read_text(encoding="utf-8-sig")
+    except UnicodeDecodeError:
+        text = path.read_text(encoding="latin-1")
+    if not text.strip():
+        raise StudyError([Problem("file-empty", "file is empty", file=name)])
+    header = text.splitlines()[0]
+    if delimiter not in header:
+        others = {";": "semicolon", "\t": "tab", ",": "comma", "|": "bar"}
+        found = [label for sep, label in others.items() if sep != delimiter and sep in header]
+        if found:
+            expected = "comma-separated" if delimiter == "," else "tab-separated"
+            raise StudyError(
+                [
+                    Problem(
+                        "delimiter",
+                        f"the header looks {found[0]}-separated",
+                        file=name,
+                        row=1,
+                        value=header[:80],
+                        expected=f"a {expected} file (or rename the file to match)",
+                    )
+                ]
+            )
+    reader = csv.reader(io.StringIO(text, newline=""), delimiter=delimiter)
+    columns: list[str] | None = None
+    body: list[list[str]] = []
+    numbers: list[int] = []
+    problems = []
+    start = 1
+    for row in reader:
+        number, start = start, reader.line_num + 1  # a quoted cell may span lines
+        if not any(cell.strip() for cell in row):
+            continue
+        if columns is None:
+            columns = row
+            continue
+        if len(row) != len(columns):
+            if len(problems) == 20:
+                problems.append(
+                    Problem("file-unreadable", "more rows with a wrong number of cells", file=name)
+                )
+            if len(problems) > 20:
+                continue
+            problems.append(
+                Problem(
+                    "file-unreadable",
+                    f"row has {len(row)} cells, the header has {len(columns)}",
+                    file=name,
+                    row=number,
+                    expected=f"{len(columns)} cells",
+                )
+            )
+            continue
+        body.append(row)
+        numbers.append(number)
+    if problems:
+        raise StudyError(problems)
+    if columns is None or not body:
+        raise StudyError([Problem("file-empty", "file has no data rows", file=name)])
+    frame = pd.DataFrame(body, columns=columns, dtype=str)
+    frame.attrs["rows"] = numbers
+    return frame

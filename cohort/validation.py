@@ -1,0 +1,482 @@
+"""Checking the values and subjects tables: every problem located, nothing silently changed.
+
+The checks are vectorised (cohorts of 100,000 subjects give millions of records) and each
+failing row becomes a :class:`~cohort.problems.Problem` naming file, spreadsheet row,
+column, value and expectation. At most :data:`PER_CODE` problems are listed per code and
+column; the rest are counted in one further problem.
+"""
+
+from __future__ import annotations
+
+import re
+
+import numpy as np
+import pandas as pd
+
+from .loading import ROW, RawTable
+from .problems import ProblemLog
+from .segments import segment_model
+from .settings import StudySettings
+from .units import INPUT_PARAMETERS
+
+PER_CODE = 20
+"""Problems listed individually per (code, column) before the rest are summarised."""
+
+ID_COLUMNS = ("subject", "method", "segment")
+LONG_COLUMNS = (*ID_COLUMNS, "parameter", "value")
+SUBJECT_COLUMNS = ("subject", "group", "field_strength")
+
+_COMMA_DECIMAL = re.compile(r"^[+-]?\d+,\d+$")
+_TESLA = re.compile(r"^\s*([0-9]*\.?[0-9]+)\s*[tT]\s*$")
+
+
+def _flag(
+    log: ProblemLog,
+    mask: np.ndarray | pd.Series,
+    frame: pd.DataFrame,
+    *,
+    code: str,
+    detail: str,
+    file: str,
+    column: str,
+    values: pd.Series | None = None,
+    expected: str | None = None,
+) -> None:
+    """Add one problem per flagged row (up to :data:`PER_CODE`), then a count of the rest."""
+    mask = np.asarray(mask, dtype=bool)
+    n = int(mask.sum())
+    if not n:
+        return
+    rows = frame.loc[mask, ROW].to_numpy()
+    shown = values[mask].to_numpy() if values is not None else [None] * n
+    for row, value in list(zip(rows, shown, strict=True))[:PER_CODE]:
+        log.add(
+            code,
+            detail,
+            file=file,
+            row=int(row),
+            column=column,
+            value=None if value is None else str(value),
+            expected=expected,
+        )
+    if n > PER_CODE:
+        log.add(
+            code,
+            f"{n - PER_CODE} more rows with the same problem ({detail}), "
+            f"first at row {rows[PER_CODE]}",
+            file=file,
+            column=column,
+        )
+
+
+def _require(log: ProblemLog, raw: RawTable, columns: tuple[str, ...], what: str) -> bool:
+    missing = [c for c in columns if c not in raw.frame.columns]
+    for column in missing:
+        log.add(
+            "missing-column",
+            f"the {what} table needs a column '{column}'",
+            file=raw.name,
+            row=1,
+            column=column,
+            expected=f"columns {list(columns)}; found {list(raw.original_columns.values())}",
+        )
+    return not missing
+
+
+def _trim_ids(log: ProblemLog, frame: pd.DataFrame, name: str, columns: tuple[str, ...]) -> None:
+    for column in columns:
+        trimmed = frame[column].str.strip()
+        changed = trimmed != frame[column]
+        if changed.any():
+            first = int(frame.loc[changed, ROW].iloc[0])
+            log.warn(
+                "whitespace-trimmed",
+                f"white space around {int(changed.sum())} value(s) removed",
+                file=name,
+                row=first,
+                column=column,
+            )
+        frame[column] = trimmed
+
+
+def parse_numbers(text: pd.Series) -> tuple[pd.Series, pd.Series, pd.Series]:
+    """Parse text cells as floats: ``(values, blank, bad)``; blanks are missing, not errors."""
+    stripped = text.str.strip()
+    blank = stripped.eq("") | stripped.str.lower().isin(["na", "nan", "n/a"])
+    numbers = pd.to_numeric(stripped.where(~blank), errors="coerce").astype(float)
+    bad = numbers.isna() & ~blank
+    return numbers, blank, bad
+
+
+def to_long(raw: RawTable, log: ProblemLog) -> pd.DataFrame | None:
+    """Values table in long layout (one record per value) with source row and column."""
+    frame = raw.frame
+    if "parameter" in frame.columns and "value" in frame.columns:
+        if not _require(log, raw, LONG_COLUMNS, "values"):
+            return None
+        long = frame.copy()
+        long["source_column"] = raw.original_columns["value"]
+        return long
+    wide = [c for c in INPUT_PARAMETERS if c in frame.columns]
+    if not wide:
+        _require(log, raw, LONG_COLUMNS, "values")
+        return None
+    if not _require(log, raw, ID_COLUMNS, "values"):
+        return None
+    extra = [c for c in frame.columns if c not in (*ID_COLUMNS, *wide, ROW)]
+    parts = []
+    for parameter in wide:
+        part = frame[[ROW, *ID_COLUMNS, *extra]].copy()
+        part["parameter"] = parameter
+        part["value"] = frame[parameter]
+        part["source_column"] = raw.original_columns[parameter]
+        # a blank cell in a wide table means "not measured" only where the column exists
+        parts.append(part)
+    return pd.concat(parts, ignore_index=True)
+
+
+def check_values(raw: RawTable, settings: StudySettings, log: ProblemLog) -> pd.DataFrame | None:
+    """Check the values table and return its records, or ``None`` when columns are missing.
+
+    Columns of the result: ``_row, subject, method, segment (Int64), parameter,
+    value_text, input_value (float, input unit), blank (bool), source_column`` and any extra
+    columns of the input.
+    """
+    long = to_long(raw, log)
+    if long is None:
+        return None
+    name = raw.name
+    _trim_ids(log, long, name, ("subject", "method"))
+    for column in ("subject", "method"):
+        _flag(
+            log,
+            long[column].eq(""),
+            long,
+            code="blank-id",
+            detail=f"{column} is blank",
+            file=name,
+            column=raw.original_columns[column],
+            expected=f"a {column} name",
+        )
+
+    model = segment_model(settings.segment_model)
+    seg_num, _, _ = parse_numbers(long["segment"])
+    valid = seg_num.isin(model.numbers)
+    _flag(
+        log,
+        ~valid.to_numpy(),
+        long,
+        code="segment-invalid",
+        detail="segment must be a whole number of the segment model",
+        file=name,
+        column=raw.original_columns["segment"],
+        values=long["segment"],
+        expected=f"an integer {model.numbers[0]}-{model.numbers[-1]} ({model.name})",
+    )
+    long["segment"] = seg_num.where(valid).round().astype("Int64")
+
+    parameter = long["parameter"].str.strip().str.lower()
+    known = parameter.isin(INPUT_PARAMETERS)
+    _flag(
+        log,
+        ~known.to_numpy(),
+        long,
+        code="unknown-parameter",
+        detail="parameter not recognised",
+        file=name,
+        column=raw.original_columns.get("parameter", "parameter"),
+        values=long["parameter"],
+        expected=f"one of {list(INPUT_PARAMETERS)}",
+    )
+    long["parameter"] = parameter
+
+    numbers, blank, bad = parse_numbers(long["value"])
+    comma = long["value"].str.strip().str.match(_COMMA_DECIMAL)
+    for source_column, part in long[bad.to_numpy()].groupby("source_column", sort=False):
+        index = part.index
+        _flag(
+            log,
+            np.ones(len(part), dtype=bool),
+            part,
+            code="not-numeric",
+            detail="value is not a number",
+            file=name,
+            column=str(source_column),
+            values=long.loc[index, "value"],
+            expected="a number with a decimal point (e.g. 12.5), or a blank cell for missing"
+            + ("; decimal commas are not read" if comma[index].any() else ""),
+        )
+    infinite = np.isinf(numbers.to_numpy())
+    for source_column, part in long[infinite].groupby("source_column", sort=False):
+        _flag(
+            log,
+            np.ones(len(part), dtype=bool),
+            part,
+            code="not-finite",
+            detail="value is infinite",
+            file=name,
+            column=str(source_column),
+            values=long.loc[part.index, "value"],
+            expected="a finite number, or a blank cell for missing",
+        )
+    long["value_text"] = long["value"]
+    long["input_value"] = numbers.where(~np.isinf(numbers))
+    long["blank"] = blank
+    long = long.drop(columns=["value"])
+
+    key = ["subject", "method", "segment", "parameter"]
+    checkable = long["segment"].notna() & known & long["subject"].ne("") & long["method"].ne("")
+    dup = long[checkable].duplicated(key, keep=False)
+    if dup.any():
+        dups = long[checkable][dup.to_numpy()]
+        for _, rows in list(dups.groupby(key, sort=False))[:PER_CODE]:
+            first, *others = rows[ROW].tolist()
+            log.add(
+                "duplicate-value",
+                f"subject {rows['subject'].iloc[0]!r}, method {rows['method'].iloc[0]!r}, "
+                f"segment {rows['segment'].iloc[0]}, parameter {rows['parameter'].iloc[0]!r} "
+                f"also in row(s) {others}",
+                file=name,
+                row=int(first),
+                column=str(rows["source_column"].iloc[0]),
+                expected="one value per subject, method, segment and parameter",
+            )
+        n_groups = dups.groupby(key, sort=False).ngroups
+        if n_groups > PER_CODE:
+            log.add("duplicate-value", f"{n_groups - PER_CODE} more duplicated keys", file=name)
+    _check_ranges(long, settings, log, name)
+    return long
+
+
+def _check_ranges(long: pd.DataFrame, settings: StudySettings, log: ProblemLog, name: str) -> None:
+    checks = settings.checks
+    v = long["input_value"]
+
+    def flag(mask: pd.Series, code: str, detail: str, expected: str) -> None:
+        for source_column, part in long[mask.to_numpy()].groupby("source_column", sort=False):
+            _flag(
+                log,
+                np.ones(len(part), dtype=bool),
+                part,
+                code=code,
+                detail=detail,
+                file=name,
+                column=str(source_column),
+                values=long.loc[part.index, "value_text"],
+                expected=expected,
+            )
+
+    ff = long["parameter"].eq("ff") & v.notna()
+    if settings.ff_unit == "percent":
+        low, high = -checks.ff_below_zero_tolerance, 100 + checks.ff_above_100_tolerance
+        scale_by_method = v[ff].abs().groupby(long.loc[ff, "method"]).max()
+        small = scale_by_method[scale_by_method <= 1.0]
+        large = scale_by_method[scale_by_method > 1.5]
+        for method in small.index if len(large) else []:
+            rows = long[ff & long["method"].eq(method)]
+            log.add(
+                "unit-mismatch",
+                f"fat fractions of method {method!r} are all within 0-1 while "
+                f"{list(large.index)} reach {large.max():.3g}: they look like fractions",
+                file=name,
+                row=int(rows[ROW].iloc[0]),
+                column=str(rows["source_column"].iloc[0]),
+                expected="all methods in percent as declared (units.ff = 'percent'), "
+                "or convert this method to percent",
+            )
+        if len(small) == len(scale_by_method) and len(small) and small.max() > 0:
+            rows = long[ff]
+            log.warn(
+                "unit-mismatch",
+                "every fat fraction is within 0-1 %: if these are fractions (0-1), "
+                "declare units.ff = 'fraction'",
+                file=name,
+                column=str(rows["source_column"].iloc[0]),
+            )
+    else:
+        low, high = -checks.ff_below_zero_tolerance / 100, 1 + checks.ff_above_100_tolerance / 100
+        above = ff & (v > high)
+        if above.sum() > 0.5 * ff.sum():
+            rows = long[above]
+            log.add(
+                "unit-mismatch",
+                f"{int(above.sum())} of {int(ff.sum())} fat fractions exceed 1: they look like "
+                "percent, but units.ff = 'fraction' was declared",
+                file=name,
+                row=int(rows[ROW].iloc[0]),
+                column=str(rows["source_column"].iloc[0]),
+                expected="fractions 0-1, or declare units.ff = 'percent'",
+            )
+            above = above & False
+        flag(above, "implausible-value", "fat fraction above 1 (fraction)", f"at most {high:g}")
+        flag(ff & (v < low), "implausible-value", "fat fraction below 0", f"at least {low:g}")
+    if settings.ff_unit == "percent":
+        flag(
+            ff & ((v < low) | (v > high)),
+            "implausible-value",
+            "fat fraction outside the plausible range",
+            f"{low:g} to {high:g} % (small negative values are noise; see [checks])",
+        )
+    r2 = long["parameter"].eq("r2star") & v.notna()
+    flag(r2 & (v < 0), "implausible-value", "R2* is negative", "R2* >= 0 1/s")
+    flag(
+        r2 & (v > checks.r2star_max),
+        "implausible-value",
+        "R2* above the plausible maximum",
+        f"at most {checks.r2star_max:g} 1/s ([checks] r2star_max)",
+    )
+    t2 = long["parameter"].eq("t2star") & v.notna()
+    flag(t2 & (v <= 0), "implausible-value", "T2* must be positive", "T2* > 0 ms")
+    flag(
+        t2 & (v > 0) & (v < 1000.0 / checks.r2star_max),
+        "implausible-value",
+        "T2* below the plausible minimum",
+        f"at least {1000.0 / checks.r2star_max:g} ms ([checks] r2star_max)",
+    )
+
+
+def check_subjects(raw: RawTable, settings: StudySettings, log: ProblemLog) -> pd.DataFrame | None:
+    """Check the subjects table; return it with ``field_strength`` as float, or ``None``."""
+    if not _require(log, raw, SUBJECT_COLUMNS, "subjects"):
+        return None
+    frame = raw.frame.copy()
+    name = raw.name
+    col = raw.original_columns
+    _trim_ids(log, frame, name, ("subject", "group"))
+    _flag(
+        log,
+        frame["subject"].eq(""),
+        frame,
+        code="blank-id",
+        detail="subject is blank",
+        file=name,
+        column=col["subject"],
+        expected="a subject ID",
+    )
+    named = frame[frame["subject"].ne("")]
+    dup = named.duplicated("subject", keep=False)
+    for subject, rows in list(named[dup].groupby("subject", sort=False))[:PER_CODE]:
+        groups = sorted(set(rows["group"]))
+        conflict = f"; conflicting groups {groups}" if len(groups) > 1 else ""
+        first, *others = rows[ROW].tolist()
+        log.add(
+            "duplicate-subject",
+            f"subject {subject!r} also in row(s) {others}{conflict}",
+            file=name,
+            row=int(first),
+            column=col["subject"],
+            expected="one row per subject",
+        )
+    if settings.groups:
+        unknown = ~frame["group"].isin(settings.groups)
+        _flag(
+            log,
+            unknown,
+            frame,
+            code="unknown-group",
+            detail="group is not one of the declared groups",
+            file=name,
+            column=col["group"],
+            values=frame["group"],
+            expected=f"one of {list(settings.groups)} ([study] groups)",
+        )
+    else:
+        _flag(
+            log,
+            frame["group"].eq(""),
+            frame,
+            code="unknown-group",
+            detail="group is blank",
+            file=name,
+            column=col["group"],
+            values=frame["group"],
+            expected="a group name",
+        )
+    text = frame["field_strength"].str.strip()
+    tesla = text.str.extract(_TESLA, expand=False)
+    with_unit = tesla.notna() & pd.to_numeric(text, errors="coerce").isna()
+    if with_unit.any():
+        log.warn(
+            "unit-in-text",
+            f"'T' removed from {int(with_unit.sum())} field strength(s), "
+            f"e.g. {text[with_unit].iloc[0]!r}",
+            file=name,
+            row=int(frame.loc[with_unit, ROW].iloc[0]),
+            column=col["field_strength"],
+        )
+        text = text.where(~with_unit, tesla)
+    numbers, blank, bad = parse_numbers(text)
+    invalid = blank | bad | ~(numbers > 0) | np.isinf(numbers)
+    _flag(
+        log,
+        invalid,
+        frame,
+        code="field-strength",
+        detail="field strength missing, not a number or not positive",
+        file=name,
+        column=col["field_strength"],
+        values=frame["field_strength"],
+        expected="the main field in tesla, e.g. 1.5 or 3",
+    )
+    frame["field_strength"] = numbers.where(~invalid)
+    return frame
+
+
+def check_across(
+    values: pd.DataFrame,
+    subjects: pd.DataFrame,
+    settings: StudySettings,
+    log: ProblemLog,
+    values_name: str,
+    subjects_name: str,
+) -> None:
+    """Checks that need both tables: subjects on both sides, methods, reference."""
+    known = set(subjects["subject"])
+    present = values["subject"].ne("")
+    orphan = values[present & ~values["subject"].isin(known)]
+    for subject, rows in list(orphan.groupby("subject", sort=False))[:PER_CODE]:
+        log.add(
+            "subject-without-info",
+            f"subject {subject!r} ({len(rows)} value(s)) is not in {subjects_name}",
+            file=values_name,
+            row=int(rows[ROW].iloc[0]),
+            column="subject",
+            value=str(subject),
+            expected=f"a row for this subject in {subjects_name}",
+        )
+    n_orphans = orphan["subject"].nunique()
+    if n_orphans > PER_CODE:
+        log.add(
+            "subject-without-info", f"{n_orphans - PER_CODE} more such subjects", file=values_name
+        )
+    with_values = set(values["subject"])
+    lonely = subjects[subjects["subject"].ne("") & ~subjects["subject"].isin(with_values)]
+    _flag(
+        log,
+        np.ones(len(lonely), dtype=bool),
+        lonely,
+        code="subject-without-values",
+        detail=f"subject has no values in {values_name}",
+        file=subjects_name,
+        column="subject",
+        values=lonely["subject"],
+        expected=f"values for this subject in {values_name}, or remove the row",
+    )
+    methods = sorted(m for m in values["method"].unique() if m)
+    if len(methods) < 2:
+        log.add(
+            "too-few-methods",
+            f"found method(s) {methods}",
+            file=values_name,
+            column="method",
+            expected="a reference method and at least one method to compare with it",
+        )
+    if settings.reference not in methods:
+        log.add(
+            "unknown-reference",
+            f"reference method {settings.reference!r} is not in the values table",
+            file=values_name,
+            column="method",
+            value=settings.reference,
+            expected=f"one of {methods}",
+        )
