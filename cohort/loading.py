@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import csv
 import io
+import re
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -29,15 +30,26 @@ class RawTable:
     frame: pd.DataFrame
     name: str
     original_columns: dict[str, str] = field(default_factory=dict)
+    header_units: dict[str, str] = field(default_factory=dict)
+    """Units written in a column name, e.g. ``{"ff": "%"}`` for a column ``ff (%)``."""
     warnings: list[Problem] = field(default_factory=list)
 
 
-def _normalise_columns(frame: pd.DataFrame, name: str) -> tuple[pd.DataFrame, dict[str, str]]:
+_UNIT_IN_NAME = re.compile(r"^(.*?)\s*[\(\[]\s*([^\)\]]*?)\s*[\)\]]\s*$")
+
+
+def _normalise_columns(
+    frame: pd.DataFrame, name: str
+) -> tuple[pd.DataFrame, dict[str, str], dict[str, str]]:
     original = {}
+    units = {}
     normalised = []
     problems = []
     for column in frame.columns:
         key = str(column).strip().lower()
+        match = _UNIT_IN_NAME.match(key)
+        if match and match.group(1):
+            key, units[match.group(1)] = match.group(1), match.group(2)
         if key in original:
             problems.append(
                 Problem(
@@ -54,7 +66,7 @@ def _normalise_columns(frame: pd.DataFrame, name: str) -> tuple[pd.DataFrame, di
         raise StudyError(problems)
     frame = frame.copy()
     frame.columns = normalised
-    return frame, original
+    return frame, original, units
 
 
 def read_table(path: str | Path) -> RawTable:
@@ -105,12 +117,12 @@ def read_table(path: str | Path) -> RawTable:
             [Problem("file-unreadable", f"cannot read file: {exc}", file=str(path))]
         ) from None
     numbers = frame.attrs.get("rows", range(2, len(frame) + 2))
-    frame, original = _normalise_columns(frame, name)
+    frame, original, units = _normalise_columns(frame, name)
     frame = frame.fillna("").astype(str)
     if frame.empty:
         raise StudyError([Problem("file-empty", "file has no data rows", file=name)])
     frame.insert(0, ROW, list(numbers))
-    return RawTable(frame, name, original, warnings)
+    return RawTable(frame, name, original, units, warnings)
 
 
 def _read_delimited(path: Path, delimiter: str) -> pd.DataFrame:
@@ -152,6 +164,20 @@ def _read_delimited(path: Path, delimiter: str) -> pd.DataFrame:
         if columns is None:
             columns = row
             continue
+        if len(row) != len(columns) and not body and not problems and len(row) > len(columns):
+            raise StudyError(
+                [
+                    Problem(
+                        "missing-column",
+                        f"the first row has {len(columns)} cell(s) but the next has {len(row)}: "
+                        "the header seems to be on row 2: remove the line(s) above it",
+                        file=name,
+                        row=1,
+                        value=",".join(columns)[:80],
+                        expected="the column names on the first row",
+                    )
+                ]
+            )
         if len(row) != len(columns):
             if len(problems) == 20:
                 problems.append(

@@ -27,6 +27,7 @@ A study file has these tables (all keys are optional except ``values``, ``subjec
     ff_above_100_tolerance = 5.0
     r2star_max = 1000.0                  # 1/s; above this is implausible in myocardium
     t2star_r2star_tolerance = 0.01       # relative; T2* and R2* both given must agree
+    field_max_abs_hz = 2000.0            # Hz; larger field offsets are implausible
 
 Tables read by later stages (``[analysis]``, ``[findings]``, ``[report]``) are kept as
 given in :attr:`StudySettings.extra` for them to interpret.
@@ -57,6 +58,9 @@ class Checks:
     r2star_max: float = 1000.0
     """1/s: T2* of 1 ms; well above myocardial hemorrhage or iron overload (common practice)."""
     t2star_r2star_tolerance: float = 0.01
+    field_max_abs_hz: float = 2000.0
+    """Hz: far beyond myocardial off-resonance at 1.5-3 T (tens to a few hundred Hz;
+    common practice); larger values are unit or export errors."""
 
 
 @dataclass(frozen=True)

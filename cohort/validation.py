@@ -71,6 +71,11 @@ def _flag(
 
 def _require(log: ProblemLog, raw: RawTable, columns: tuple[str, ...], what: str) -> bool:
     missing = [c for c in columns if c not in raw.frame.columns]
+    hint = ""
+    if missing and len(raw.frame):
+        first = {str(v).strip().lower() for v in raw.frame.iloc[0].tolist()}
+        if set(missing) & first:
+            hint = "; the header seems to be on row 2: remove the line(s) above it"
     for column in missing:
         log.add(
             "missing-column",
@@ -78,9 +83,60 @@ def _require(log: ProblemLog, raw: RawTable, columns: tuple[str, ...], what: str
             file=raw.name,
             row=1,
             column=column,
-            expected=f"columns {list(columns)}; found {list(raw.original_columns.values())}",
+            expected=f"columns {list(columns)}; found {list(raw.original_columns.values())}" + hint,
         )
     return not missing
+
+
+HEADER_UNITS = {
+    ("ff", "percent"): ("%", "percent", "pct", "pp"),
+    ("ff", "fraction"): ("fraction", "frac", "0-1"),
+    ("r2star", None): ("1/s", "s-1", "s^-1", "/s", "hz"),
+    ("t2star", None): ("ms", "msec"),
+    ("field", "Hz"): ("hz",),
+    ("field", "ppm"): ("ppm",),
+}
+"""Units accepted in a column name for each parameter and declared unit (lower case)."""
+
+
+def check_header_units(raw: RawTable, settings: StudySettings, log: ProblemLog) -> None:
+    """A unit written in a column name must be the declared one; it is then removed."""
+    declared = {"ff": settings.ff_unit, "field": settings.field_unit}
+    for column, unit in raw.header_units.items():
+        original = raw.original_columns[column]
+        if column not in INPUT_PARAMETERS:
+            log.warn(
+                "unit-in-text",
+                f"'{unit}' in the column name {original!r} ignored: units are declared "
+                "in the study file ([units])",
+                file=raw.name,
+                row=1,
+                column=original,
+            )
+            continue
+        accepted = HEADER_UNITS[(column, declared.get(column))]
+        if unit.lower() in accepted:
+            log.warn(
+                "unit-in-text",
+                f"unit '{unit}' read from the column name {original!r}",
+                file=raw.name,
+                row=1,
+                column=original,
+            )
+        else:
+            log.add(
+                "unit-mismatch",
+                f"the column name {original!r} gives the unit '{unit}'",
+                file=raw.name,
+                row=1,
+                column=original,
+                expected=f"one of {list(accepted)} for {column}"
+                + (
+                    f" as declared (units.{column} = '{declared[column]}')"
+                    if column in declared
+                    else ""
+                ),
+            )
 
 
 def _trim_ids(log: ProblemLog, frame: pd.DataFrame, name: str, columns: tuple[str, ...]) -> None:
@@ -142,6 +198,7 @@ def check_values(raw: RawTable, settings: StudySettings, log: ProblemLog) -> pd.
     value_text, input_value (float, input unit), blank (bool), source_column`` and any extra
     columns of the input.
     """
+    check_header_units(raw, settings, log)
     long = to_long(raw, log)
     if long is None:
         return None
@@ -325,6 +382,15 @@ def _check_ranges(long: pd.DataFrame, settings: StudySettings, log: ProblemLog, 
         "R2* above the plausible maximum",
         f"at most {checks.r2star_max:g} 1/s ([checks] r2star_max)",
     )
+    fld = long["parameter"].eq("field") & v.notna()
+    limit = checks.field_max_abs_hz
+    if settings.field_unit == "Hz":
+        flag(
+            fld & (v.abs() > limit),
+            "implausible-value",
+            "field offset beyond the plausible range",
+            f"|field| at most {limit:g} Hz ([checks] field_max_abs_hz)",
+        )
     t2 = long["parameter"].eq("t2star") & v.notna()
     flag(t2 & (v <= 0), "implausible-value", "T2* must be positive", "T2* > 0 ms")
     flag(
