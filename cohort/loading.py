@@ -116,7 +116,8 @@ def read_table(path: str | Path) -> RawTable:
         raise StudyError(
             [Problem("file-unreadable", f"cannot read file: {exc}", file=str(path))]
         ) from None
-    numbers = frame.attrs.get("rows", range(2, len(frame) + 2))
+    numbers = frame.attrs.pop("rows", range(2, len(frame) + 2))
+    frame.attrs.clear()  # pandas deep-copies attrs on every operation: keep none
     frame, original, units = _normalise_columns(frame, name)
     frame = frame.fillna("").astype(str)
     if frame.empty:
