@@ -1,0 +1,494 @@
+"""Tests of cohort.figure_set: the report's figures drawn from given tables and saved.
+
+The study is the invented demo cohort (12 subjects) and the tables are small fakes with the
+documented columns, so every expected number here is computed in the test from the study's
+own frames with numpy, independently of the module. File checks use the published
+signatures of the formats: PNG files start with the 8 bytes 89 50 4E 47 0D 0A 1A 0A (PNG
+specification, W3C Recommendation 2003, section 5.2); SVG documents have the root element
+``svg`` in the namespace http://www.w3.org/2000/svg (SVG 1.1, W3C 2011, section 5.1).
+"""
+
+from __future__ import annotations
+
+import copy
+import dataclasses
+import math
+import warnings
+import xml.etree.ElementTree as ET
+
+import matplotlib
+
+matplotlib.use("Agg")
+
+import matplotlib.pyplot as plt
+import numpy as np
+import pandas as pd
+import pytest
+from matplotlib.colors import to_rgba
+
+from cohort import figure_set
+from cohort.bullseye import OUTLINE_COLOUR, OUTLINE_WIDTH
+from cohort.demo import write_demo
+from cohort.figure_set import (
+    FINDINGS_REQUIRED,
+    SECTIONS,
+    FigureRecord,
+    FigureSet,
+    make_figures,
+)
+from cohort.study import load_study
+from cohort.units import PARAMETERS
+
+PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"  # PNG specification (W3C 2003), section 5.2
+SVG_NAMESPACE = "{http://www.w3.org/2000/svg}"  # SVG 1.1 (W3C 2011), section 5.1
+
+# Demo thresholds for the fake findings table: R2* > 50 1/s at 1.5 T, 79 1/s at 3 T
+# (the package defaults of cohort.thresholds, common practice), fat fraction >= 10 %.
+HEMORRHAGE = {1.5: 50.0, 3.0: 79.0}
+FAT = 10.0
+
+
+@pytest.fixture(autouse=True)
+def _close_figures():
+    yield
+    plt.close("all")
+
+
+@pytest.fixture(scope="module")
+def study(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("demo")
+    return load_study(write_demo(folder, n_subjects=12))
+
+
+def fake_agreement(study) -> pd.DataFrame:
+    """Agreement rows with the documented columns, numbers computed here with numpy."""
+    rows = []
+    for (parameter, method), part in study.paired.groupby(["parameter", "method"], sort=False):
+        d = (part["test_value"] - part["reference_value"]).to_numpy()
+        bias, sd = float(np.mean(d)), float(np.std(d, ddof=1))
+        row = {
+            "parameter": parameter,
+            "method": method,
+            "reference": study.reference,
+            "n_subjects": part["subject"].nunique(),
+            "n_pairs": len(part),
+            "bias": bias,
+            "bias_ci_low": bias - 0.1 * sd,
+            "bias_ci_high": bias + 0.1 * sd,
+            "loa_low": bias - 1.96 * sd,
+            "loa_high": bias + 1.96 * sd,
+            "loa_low_ci_low": bias - 2.2 * sd,
+            "loa_low_ci_high": bias - 1.8 * sd,
+            "loa_high_ci_low": bias + 1.8 * sd,
+            "loa_high_ci_high": bias + 2.2 * sd,
+            "ccc": 0.9,
+            "ccc_ci_low": 0.85,
+            "ccc_ci_high": 0.95,
+            "pb_slope": 1.0,
+            "pb_intercept": 0.0,
+            "confidence_level": 0.95,
+            "ci_method": "fake intervals for the test",
+        }
+        ratio = sd_log = math.nan  # ratio scale only for R2*, as the package's default
+        if parameter == "r2star":
+            log_ratio = np.log(part["test_value"] / part["reference_value"]).to_numpy()
+            ratio, sd_log = float(np.exp(np.mean(log_ratio))), float(np.std(log_ratio, ddof=1))
+        row.update(
+            ratio_bias=ratio,
+            ratio_loa_low=ratio * math.exp(-1.96 * sd_log),
+            ratio_loa_high=ratio * math.exp(1.96 * sd_log),
+        )
+        rows.append({**row, "stratum": "all"})
+        rows.append({**row, "stratum": "group=acute", "bias": bias + 1.0})
+    return pd.DataFrame(rows)
+
+
+def fake_findings(study) -> pd.DataFrame:
+    """Segment findings of every method with the documented columns (thresholds above)."""
+    v = study.values
+    parts = []
+    r2 = v[v["parameter"] == "r2star"].copy()
+    r2["threshold"] = r2["field_strength"].map(HEMORRHAGE)
+    r2["finding"] = "hemorrhage"
+    ff = v[v["parameter"] == "ff"].copy()
+    ff["threshold"] = FAT
+    ff["finding"] = "fat"
+    for part, above in ((r2, r2["value"] > r2["threshold"]), (ff, ff["value"] >= FAT)):
+        part["positive"] = above.astype(bool)
+        parts.append(part)
+    columns = [*FINDINGS_REQUIRED, "value", "threshold", "parameter", "field_strength"]
+    return pd.concat(parts, ignore_index=True)[columns]
+
+
+@pytest.fixture(scope="module")
+def tables(study):
+    return {"agreement": fake_agreement(study), "findings_segment": fake_findings(study)}
+
+
+@pytest.fixture(scope="module")
+def drawn(study, tables, tmp_path_factory):
+    """One full run (PNG and SVG), with copies of every input taken before it."""
+    before = {
+        "tables": {k: v.copy(deep=True) for k, v in tables.items()},
+        "values": study.values.copy(deep=True),
+        "paired": study.paired.copy(deep=True),
+        "subjects": study.subjects.copy(deep=True),
+        "attrs": copy.deepcopy(study.values.attrs),
+    }
+    folder = tmp_path_factory.mktemp("figures")
+    messages: list[str] = []
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")  # no warning expected from consistent inputs
+        # 72 dpi keeps the test fast; the resolution does not change what is drawn
+        records = make_figures(study, tables, folder, dpi=72, progress=messages.append)
+    return records, folder, messages, before
+
+
+def by_key(records) -> dict[str, FigureRecord]:
+    return {r.key: r for r in records}
+
+
+# --- files and records ---------------------------------------------------------------------
+
+
+def test_every_figure_is_a_non_empty_png_and_svg(drawn):
+    records, folder, _, _ = drawn
+    assert len(records) >= 15
+    for record in records:
+        suffixes = sorted(p.suffix for p in record.paths)
+        assert suffixes == [".png", ".svg"], record.key
+        for path in record.paths:
+            assert path.parent == folder and path.stem == record.key
+            assert path.stat().st_size > 1000, path
+        png = next(p for p in record.paths if p.suffix == ".png")
+        assert png.read_bytes()[:8] == PNG_SIGNATURE
+        svg = next(p for p in record.paths if p.suffix == ".svg")
+        assert ET.parse(svg).getroot().tag == f"{SVG_NAMESPACE}svg"
+
+
+def test_no_other_files_are_written(drawn):
+    records, folder, _, _ = drawn
+    written = {p for r in records for p in r.paths}
+    assert set(folder.iterdir()) == written
+
+
+def test_keys_are_unique_and_records_are_complete(drawn):
+    records, _, _, _ = drawn
+    assert isinstance(records, FigureSet) and isinstance(records, list)
+    keys = [r.key for r in records]
+    assert len(keys) == len(set(keys))
+    for record in records:
+        assert record.section in SECTIONS
+        assert record.title and len(record.caption) > 80
+        assert record.parameter is None or record.parameter in PARAMETERS
+    with pytest.raises(AttributeError):
+        records[0].key = "changed"  # frozen dataclass
+
+
+def test_the_figures_of_the_brief_are_there(drawn, study):
+    keys = set(by_key(drawn[0]))
+    (method,) = study.test_methods
+    expected = {
+        f"bland_altman_r2star_{method}",
+        f"bland_altman_ratio_r2star_{method}",
+        f"scatter_ff_{method}",
+        "bullseye_median_ff_by_group_method",
+        f"bullseye_difference_r2star_by_group_{method}",
+        "bullseye_prevalence_hemorrhage_by_group_method",
+        "bullseye_prevalence_fat_by_group_method",
+        "bullseye_subjects_r2star",
+        "groups_r2star_subject_mean",
+        f"paired_ff_subject_mean_{method}",
+    }
+    assert expected <= keys
+    # R2* depends on B0 (Storey et al., J Magn Reson Imaging 2007): one median map per
+    # field strength of the demo; fat fraction does not, so one map.
+    strengths = sorted(study.subjects["field_strength"].unique())
+    assert len(strengths) == 2
+    for b0 in strengths:
+        assert f"bullseye_median_r2star_{b0:g}T_by_group_method" in keys
+    assert "bullseye_median_ff_1.5T_by_group_method" not in keys
+    # ratio limits only where the table has them (NaN for ff and field)
+    assert f"bland_altman_ratio_ff_{method}" not in keys
+
+
+def test_the_set_stays_small_for_the_demo(drawn):
+    assert len(drawn[0]) <= 25
+
+
+def test_progress_is_called_once_per_figure(drawn):
+    records, _, messages, _ = drawn
+    assert len(messages) == len(records)
+    assert all(r.key in m for r, m in zip(records, messages, strict=True))
+
+
+# --- captions ----------------------------------------------------------------------------
+
+
+def test_captions_name_the_unit(drawn):
+    for record in drawn[0]:
+        if record.parameter is not None:
+            unit = PARAMETERS[record.parameter].unit
+            assert f"({unit})" in record.caption, record.key
+        if record.key.startswith("bullseye_prevalence"):
+            assert "%" in record.caption
+
+
+def test_agreement_captions_give_counts_estimator_and_ci(drawn, study, tables):
+    records = by_key(drawn[0])
+    (method,) = study.test_methods
+    for parameter in ("ff", "r2star", "field"):
+        pairs = study.paired[
+            (study.paired["parameter"] == parameter) & (study.paired["method"] == method)
+        ]
+        counts = f"{len(pairs)} (subject, segment) pairs from {pairs['subject'].nunique()} subjects"
+        ba = records[f"bland_altman_{parameter}_{method}"].caption
+        assert counts in ba
+        assert "Bland & Altman 2007" in ba and "1.96 SD" in ba
+        assert "95% CIs" in ba and "fake intervals for the test" in ba
+        scatter = records[f"scatter_{parameter}_{method}"].caption
+        assert counts in scatter and "Passing-Bablok" in scatter and "concordance" in scatter
+
+
+def test_group_captions_say_the_means_are_for_display(drawn):
+    records = by_key(drawn[0])
+    caption = records["groups_r2star_subject_mean"].caption
+    assert "for display only" in caption and "arithmetic mean" in caption
+    assert "1.5 T and 3 T" in caption
+
+
+def test_prevalence_caption_states_the_outline_rule(drawn):
+    caption = by_key(drawn[0])["bullseye_prevalence_hemorrhage_by_group_method"].caption
+    assert "at least 10 percentage points below" in caption
+    # thresholds read from the table, with their unit and field strength
+    assert "50 1/s at 1.5 T" in caption and "79 1/s at 3 T" in caption
+
+
+# --- inputs stay as they were -------------------------------------------------------------
+
+
+def test_inputs_are_unchanged(drawn, study, tables):
+    before = drawn[3]
+    for name, table in tables.items():
+        pd.testing.assert_frame_equal(table, before["tables"][name])
+    pd.testing.assert_frame_equal(study.values, before["values"])
+    pd.testing.assert_frame_equal(study.paired, before["paired"])
+    pd.testing.assert_frame_equal(study.subjects, before["subjects"])
+    assert study.values.attrs == before["attrs"]
+
+
+# --- absent, empty and malformed tables ---------------------------------------------------
+
+
+def test_absent_tables_skip_their_figures(study, tmp_path):
+    # fat fraction only, to keep the run short; the skipping does not depend on it
+    study = dataclasses.replace(
+        study,
+        values=study.values[study.values["parameter"] == "ff"],
+        paired=study.paired[study.paired["parameter"] == "ff"],
+    )
+    folder = tmp_path / "not" / "yet"
+    records = make_figures(study, {}, folder, formats=("png",), dpi=40)
+    assert folder.is_dir() and all(p.exists() for r in records for p in r.paths)
+    keys = {r.key for r in records}
+    skipped = {s.key: s.reason for s in records.skipped}
+    (method,) = study.test_methods
+    assert not any(k.startswith(("bland_altman", "scatter", "bullseye_prevalence")) for k in keys)
+    assert f"bland_altman_ff_{method}" in skipped and f"scatter_ff_{method}" in skipped
+    assert "no 'agreement' table" in skipped[f"bland_altman_ff_{method}"]
+    assert "bullseye_prevalence_by_group_method" in skipped
+    assert "bullseye_subjects_r2star" in skipped
+    # figures that need only the study are still drawn
+    assert "bullseye_median_ff_by_group_method" in keys and "groups_ff_subject_mean" in keys
+    assert all(p.suffix == ".png" for r in records for p in r.paths)
+    frame = records.to_frame()
+    assert len(frame) == len(records) + len(records.skipped)
+    assert (frame["skipped_reason"] != "").sum() == len(records.skipped)
+
+
+def test_empty_tables_skip_their_figures(study, tables, tmp_path):
+    empty = {name: table.iloc[0:0] for name, table in tables.items()}
+    reasons = {}
+    for source in (
+        figure_set._agreement_figures(study, empty),
+        figure_set._prevalence_figures(study, empty),
+        figure_set._subject_figure(study, empty, ()),
+    ):
+        for item in source:
+            assert isinstance(item, figure_set.SkippedFigure), item.key
+            reasons[item.key] = item.reason
+    assert "the 'findings_segment' table is empty" in reasons["bullseye_prevalence_by_group_method"]
+    assert any("'agreement' table is empty" in r for r in reasons.values())
+
+
+def test_a_missing_column_is_an_error_naming_it(study, tables, tmp_path):
+    broken = {"agreement": tables["agreement"].drop(columns=["loa_low"])}
+    with pytest.raises(ValueError, match=r"lacks the column\(s\) \['loa_low'\]"):
+        make_figures(study, broken, tmp_path)
+
+
+def test_arguments_are_checked(study, tables, tmp_path):
+    with pytest.raises(ValueError, match="formats must be a non-empty sequence"):
+        make_figures(study, tables, tmp_path, formats="png")
+    with pytest.raises(ValueError, match="subjects_to_show must be a sequence"):
+        make_figures(study, tables, tmp_path, subjects_to_show="HV001")
+    with pytest.raises(ValueError, match=r"subjects_to_show names subjects not in the study"):
+        list(figure_set._subject_figure(study, tables, ["nobody"]))
+
+
+# --- what is drawn ------------------------------------------------------------------------
+
+
+def test_bland_altman_draws_the_table_row(study, tables):
+    row = tables["agreement"].query("parameter == 'ff' and stratum == 'all'").iloc[0]
+    pairs = study.paired[study.paired["parameter"] == "ff"]
+    drawn = figure_set._bland_altman(study, row, pairs, "k")
+    ax = drawn.fig.axes[0]
+    lines = {line.get_gid(): line for line in ax.get_lines()}
+    # the stratum "all" row, not the group row whose bias is 1 higher
+    assert lines["bias"].get_ydata()[0] == pytest.approx(row["bias"])
+    assert lines["loa_high"].get_ydata()[0] == pytest.approx(row["loa_high"])
+    points = sum(len(c.get_offsets()) for c in ax.collections if str(c.get_gid()).startswith("p"))
+    assert points == len(pairs)
+    # the legend (above the axes) fits inside the figure
+    fig = drawn.fig
+    fig.draw_without_rendering()
+    box = ax.get_legend().get_window_extent(fig.canvas.get_renderer())
+    assert box.x1 <= fig.bbox.x1 + 1 and box.x0 >= fig.bbox.x0 - 1
+
+
+def test_median_map_colours_are_numpy_medians(study):
+    drawn = next(figure_set._median_figures(study))
+    assert drawn.key == "bullseye_median_ff_by_group_method"
+    v = study.values
+    part = v[(v["parameter"] == "ff") & (v["group"] == "control") & (v["method"] == "quickmap")]
+    expected = float(np.median(part.loc[part["segment"] == 5, "value"].to_numpy()))
+    # panel (first group, second method)
+    ax = drawn.grid.axes[0][1]
+    patch = next(p for p in ax.patches if p.get_gid() == "segment-5")
+    norm, cmap = drawn.grid.mappable.norm, drawn.grid.mappable.cmap
+    assert np.allclose(patch.get_facecolor(), cmap(norm(expected)))
+    # limits from 0 (or a lower median: noise near 0 % is signed) to the highest median
+    ff = v[v["parameter"] == "ff"]
+    medians = [
+        float(np.median(g["value"].to_numpy()))
+        for _, g in ff.groupby(["group", "method", "segment"])
+    ]
+    assert norm.vmin == pytest.approx(min(0.0, min(medians)))
+    assert norm.vmax == pytest.approx(max(medians))
+
+
+def test_difference_maps_are_centred_at_zero(study):
+    for drawn in figure_set._difference_figures(study):
+        norm = drawn.grid.mappable.norm
+        assert norm.vmin == pytest.approx(-norm.vmax), drawn.key
+        plt.close(drawn.fig)
+
+
+def test_prevalence_outlines_segments_the_test_method_misses(study):
+    """Invented table: in the acute group the reference is positive in segment 3 for 2 of
+    8 subjects more than the test (25 points); elsewhere both agree."""
+    subjects = [f"S{i}" for i in range(8)]
+    rows = []
+    for method in ("reference-fit", "quickmap"):
+        for k, s in enumerate(subjects):
+            for segment in range(1, 18):
+                positive = segment == 3 and (k < 3 if method == "reference-fit" else k < 1)
+                positive |= segment == 7 and k == 0  # 12.5 % in both methods
+                rows.append((s, "acute", method, segment, "hemorrhage", positive))
+    table = pd.DataFrame(rows, columns=list(FINDINGS_REQUIRED))
+    (drawn,) = list(figure_set._prevalence_figures(study, {"findings_segment": table}))
+    polar = [ax for ax in drawn.fig.axes if ax.name == "polar"]
+    reference_ax, test_ax = polar
+    outlined = [
+        p.get_gid()
+        for p in test_ax.patches
+        if p.get_linewidth() == pytest.approx(OUTLINE_WIDTH)
+        and np.allclose(p.get_edgecolor(), to_rgba(OUTLINE_COLOUR))
+    ]
+    assert outlined == ["segment-3"]
+    assert not any(p.get_linewidth() == pytest.approx(OUTLINE_WIDTH) for p in reference_ax.patches)
+    notes = {t.get_gid(): t.get_text() for t in reference_ax.texts}
+    assert notes["annotation-3"] == "38"  # 3/8 = 37.5 %, rounded half up
+    assert notes["annotation-7"] == "13"  # 1/8 = 12.5 %, rounded half up
+
+
+def test_default_subjects_are_reference_positive_in_id_order(study, tables):
+    findings = tables["findings_segment"]
+    positive = findings[
+        (findings["finding"] == "hemorrhage")
+        & (findings["method"] == study.reference)
+        & findings["positive"]
+    ]
+    expected = sorted(positive["subject"].unique())[: figure_set.MAX_SUBJECTS_SHOWN]
+    assert expected  # the demo plants hemorrhage in acute patients
+    chosen = figure_set._default_subjects(findings, "hemorrhage", study.reference)
+    assert chosen == expected
+    (drawn,) = list(figure_set._subject_figure(study, tables, ()))
+    titles = [ax.get_title() for ax in drawn.fig.axes if ax.name == "polar" and ax.get_visible()]
+    assert len(titles) == len(expected) * len(study.methods)
+    assert [t.split(",")[0] for t in titles[:: len(study.methods)]] == expected
+
+
+def test_named_subjects_are_drawn_six_to_a_figure(study, tables):
+    named = sorted(study.subjects["subject"])[:7]
+    drawn = list(figure_set._subject_figure(study, tables, [*named, named[0]]))  # a repeat
+    assert [d.key for d in drawn] == [
+        "bullseye_subjects_r2star_part1",
+        "bullseye_subjects_r2star_part2",
+    ]
+    panels = [sum(ax.get_visible() for ax in d.fig.axes if ax.name == "polar") for d in drawn]
+    assert panels == [6 * len(study.methods), 1 * len(study.methods)]
+    # one colour scale for both parts
+    assert drawn[0].grid.mappable.norm.vmax == drawn[1].grid.mappable.norm.vmax
+    assert "part 2 of 2" in drawn[1].caption
+
+
+def test_field_group_plots_are_skipped_when_referenced_to_the_subject_median(drawn, study):
+    assert study.settings.field_referencing == "subject-median"
+    records = drawn[0]
+    reasons = {s.key: s.reason for s in records.skipped}
+    assert "groups_field_subject_mean" in reasons
+    assert "close to 0 by construction" in reasons["groups_field_subject_mean"]
+
+
+def test_column_names_match_the_tables_of_the_package():
+    """The constants name real columns of the agreement and findings tables."""
+    from cohort.agreement_table import AGREEMENT_COLUMNS
+    from cohort.findings import SEGMENT_COLUMNS
+
+    used = [
+        *figure_set.AGREEMENT_REQUIRED,
+        *figure_set.LIMIT_CI_COLUMNS,
+        *figure_set.RATIO_COLUMNS.values(),
+        figure_set.CONFIDENCE_LEVEL,
+        figure_set.CI_METHOD,
+        figure_set.NOTE,
+        figure_set.CCC,
+        *figure_set.CCC_CI,
+        figure_set.PB_SLOPE,
+        figure_set.PB_INTERCEPT,
+        *figure_set.PB_SLOPE_CI,
+        *figure_set.PB_INTERCEPT_CI,
+        figure_set.PB_CI_METHOD,
+    ]
+    assert [c for c in used if c not in AGREEMENT_COLUMNS] == []
+    assert [c for c in FINDINGS_REQUIRED if c not in SEGMENT_COLUMNS] == []
+
+
+def test_real_tables_of_the_package_are_drawn(study, tmp_path):
+    """Integration: the agreement table without bootstrap (no CI bands) and the findings."""
+    from cohort.agreement_table import agreement_table
+    from cohort.findings import evaluate_findings
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        agreement = agreement_table(study.paired, strata=("all",), n_boot=0)
+        findings = evaluate_findings(study.values, study.subjects).segments
+    tables = {"agreement": agreement, "findings_segment": findings}
+    gen = figure_set._agreement_figures(study, tables)
+    first = next(gen)
+    assert first.key == "bland_altman_ff_quickmap"
+    assert "No CI bands" in first.caption
+    (prevalence, *_) = list(figure_set._prevalence_figures(study, tables))
+    assert prevalence.key == "bullseye_prevalence_hemorrhage_by_group_method"
