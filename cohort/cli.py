@@ -10,14 +10,10 @@ import argparse
 import sys
 from collections.abc import Sequence
 
+from .cautions import CAUTION
 from .problems import StudyError, format_problems
 from .settings import StudySettings, build_settings, read_study_file
 from .study import load_study
-
-CAUTION = (
-    "Research use only: not a diagnostic device. Thresholds and defaults need local "
-    "validation; defer to local clinical practice and licensed professionals."
-)
 
 
 def _add_study_arguments(parser: argparse.ArgumentParser) -> None:
@@ -75,6 +71,49 @@ def cmd_check(args: argparse.Namespace) -> int:
     return 0
 
 
+def cmd_run(args: argparse.Namespace) -> int:
+    from .outputs import OutputExistsError
+    from .pipeline import options_from_study
+    from .runner import run
+
+    settings = settings_from_args(args)
+    study = load_study(settings)
+    options = options_from_study(
+        study,
+        seed=args.seed,
+        n_boot=args.bootstrap,
+        figures=False if args.no_figures else None,
+    )
+
+    def progress(message: str) -> None:
+        if not args.quiet:
+            print(f"[cohort] {message} ...", file=sys.stderr, flush=True)
+
+    try:
+        summary = run(study, args.out, options, force=args.force, progress=progress)
+    except OutputExistsError as exc:
+        print(f"cohort: {exc}", file=sys.stderr)
+        return 2
+    print(summary.text())
+    print(f"\n{CAUTION}")
+    return 0
+
+
+def cmd_demo(args: argparse.Namespace) -> int:
+    from pathlib import Path
+
+    from .demo import write_demo
+
+    folder = Path(args.folder)
+    if folder.exists() and any(folder.iterdir()) and not args.force:
+        print(f"cohort: {str(folder)!r} is not empty; give --force to overwrite", file=sys.stderr)
+        return 2
+    study_file = write_demo(folder, n_subjects=args.subjects, seed=args.seed)
+    print(f"wrote an invented demo cohort to {folder} (see {study_file.name}); no real data")
+    print(f"next: cohort run {study_file} --out cohort-report")
+    return 0
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="cohort",
@@ -87,6 +126,29 @@ def build_parser() -> argparse.ArgumentParser:
     check = sub.add_parser("check", help="validate a study and print a summary; writes nothing")
     _add_study_arguments(check)
     check.set_defaults(func=cmd_check)
+
+    run = sub.add_parser("run", help="run every analysis and write the report folder")
+    _add_study_arguments(run)
+    run.add_argument("--out", required=True, help="output folder (must be empty or new)")
+    run.add_argument("--seed", type=int, default=None, help="bootstrap seed")
+    run.add_argument(
+        "--bootstrap",
+        type=int,
+        default=None,
+        metavar="B",
+        help="bootstrap resamples (default 2000)",
+    )
+    run.add_argument("--no-figures", action="store_true", help="tables, methods and manifest only")
+    run.add_argument("--force", action="store_true", help="replace a non-empty output folder")
+    run.add_argument("--quiet", action="store_true", help="no progress messages")
+    run.set_defaults(func=cmd_run)
+
+    demo = sub.add_parser("demo", help="write the invented demo cohort to a folder")
+    demo.add_argument("folder")
+    demo.add_argument("--subjects", type=int, default=48)
+    demo.add_argument("--seed", type=int, default=20261202)
+    demo.add_argument("--force", action="store_true")
+    demo.set_defaults(func=cmd_demo)
     return parser
 
 

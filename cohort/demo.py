@@ -104,6 +104,7 @@ def make_demo(n_subjects: int = 48, seed: int = 20261202) -> DemoCohort:
     r2_15 = (
         rng.normal(23.0, 2.5, n) + 5.0 * inferolateral + rng.normal(0.0, 4.0, n_subjects)[subj_idx]
     )
+    r2_15 = np.maximum(r2_15, 12.0)  # physiological floor (T2* about 83 ms)
     r2_15[hem] = rng.uniform(52.0, 75.0, hem.sum())
     r2_true = r2star_at(field_s, r2_15)
     offset = rng.uniform(-40.0, 40.0, (2, n_subjects))  # per acquisition, per method
@@ -112,10 +113,10 @@ def make_demo(n_subjects: int = 48, seed: int = 20261202) -> DemoCohort:
 
     ref_ff = ff_true + rng.normal(0, 0.5, n)
     test_ff = FF_BIAS + FF_SLOPE * ff_true + rng.normal(0, 0.8, n)
-    ref_r2 = r2_true + rng.normal(0, 2.0, n)
+    ref_r2 = np.maximum(r2_true + rng.normal(0, 2.0, n), 0.0)  # fits constrain R2* >= 0
     knee = r2star_at(field_s, np.full(n, R2_KNEE_15T))
     test_r2 = np.where(r2_true > knee, knee + R2_KEEP * (r2_true - knee), r2_true)
-    test_r2 = test_r2 + rng.normal(0, 3.0, n)
+    test_r2 = np.maximum(test_r2 + rng.normal(0, 3.0, n), 0.0)
     ref_field = field_true + offset[0, subj_idx] + rng.normal(0, 1.0, n)
     test_field = field_true + offset[1, subj_idx] + rng.normal(0, 2.0, n)
 

@@ -1,0 +1,289 @@
+"""The whole analysis of a study, as one pure function, and the run that writes it out.
+
+``analyse(study, options)`` computes every table of the report from a loaded study (no I/O);
+``run(...)`` loads, analyses and writes the output folder atomically (see
+:mod:`cohort.outputs`). The command line, the report and notebooks call these.
+
+Options come from the ``[analysis]`` table of the study file (all optional)::
+
+    [analysis]
+    seed = 20261202            # bootstrap seed
+    n_boot = 2000              # subject cluster bootstrap resamples
+    confidence_level = 0.95
+    strata = ["all", "group", "ring", "territory"]
+    ratio_parameters = ["r2star"]   # also reported on the ratio (log) scale
+    error_ratio = 1.0          # Deming: var(error test) / var(error reference)
+    regression_limits = false  # Bland & Altman 1999 regression-based limits
+    correction = "holm"        # multiple testing: "holm" or "fdr_bh"
+    ccc_min = 0.9              # deceptive-agreement warning: CCC at or above ...
+    sensitivity_max = 0.8      # ... while sensitivity for a finding is below this
+    bias_ratio = 2.0           # ... or bias in positive segments this many times that elsewhere
+
+Command-line options (``--seed``, ``--bootstrap``) override the study file.
+"""
+
+from __future__ import annotations
+
+import time
+import warnings
+from collections.abc import Callable, Mapping
+from dataclasses import asdict, dataclass, field, fields, replace
+from typing import Any
+
+import pandas as pd
+
+from .agreement_table import agreement_table
+from .bootstrap import DEFAULT_N_BOOT, DEFAULT_SEED
+from .detection import deceptive_agreement, finding_strata, findings_agreement, missed_findings
+from .findings import FindingsResult, evaluate_findings
+from .groups import study_group_comparison
+from .problems import Problem, StudyError, problems_frame
+from .results import CohortWarning
+from .segments import SEGMENTS
+from .study import Study
+from .swaps import swap_screen_with
+from .thresholds import parse_findings, parse_swap_options, thresholds_table
+
+Progress = Callable[[str], None]
+
+
+@dataclass(frozen=True)
+class RunOptions:
+    """Analysis options; every one is recorded in the manifest and the methods text."""
+
+    seed: int = DEFAULT_SEED
+    n_boot: int = DEFAULT_N_BOOT
+    confidence_level: float = 0.95
+    strata: tuple[str, ...] = ("all", "group", "ring", "territory")
+    ratio_parameters: tuple[str, ...] = ("r2star",)
+    error_ratio: float = 1.0
+    regression_limits: bool = False
+    correction: str = "holm"
+    ccc_min: float = 0.9
+    sensitivity_max: float = 0.8
+    bias_ratio: float = 2.0
+    figures: bool = True
+
+    def to_dict(self) -> dict[str, Any]:
+        return {k: list(v) if isinstance(v, tuple) else v for k, v in asdict(self).items()}
+
+
+def options_from_study(study: Study, **overrides: Any) -> RunOptions:
+    """Options of the study file's ``[analysis]`` table, then ``overrides`` (not None)."""
+    table = dict(study.settings.extra.get("analysis", {}))
+    known = {f.name: f for f in fields(RunOptions)}
+    problems = []
+    values: dict[str, Any] = {}
+    for key, value in table.items():
+        if key not in known or key == "figures":
+            problems.append(
+                Problem(
+                    "study-option",
+                    f"unknown key '{key}' in [analysis]",
+                    file=str(study.settings.study_file),
+                    value=key,
+                    expected=f"one of {sorted(k for k in known if k != 'figures')}",
+                )
+            )
+            continue
+        default = getattr(RunOptions(), key)
+        try:
+            if isinstance(default, tuple):
+                if isinstance(value, str) or not isinstance(value, list):
+                    raise TypeError("a list")
+                values[key] = tuple(str(v) for v in value)
+            elif isinstance(default, bool):
+                if not isinstance(value, bool):
+                    raise TypeError("true or false")
+                values[key] = value
+            else:
+                values[key] = type(default)(value)
+        except (TypeError, ValueError) as exc:
+            problems.append(
+                Problem(
+                    "study-option",
+                    f"[analysis] {key} is not valid",
+                    file=str(study.settings.study_file),
+                    value=str(value),
+                    expected=str(exc) or f"like {default!r}",
+                )
+            )
+    if problems:
+        raise StudyError(problems)
+    values.update({k: v for k, v in overrides.items() if v is not None})
+    options = replace(RunOptions(), **values)
+    if options.correction not in ("holm", "fdr_bh"):
+        raise StudyError(
+            [
+                Problem(
+                    "study-option",
+                    "[analysis] correction is not valid",
+                    value=options.correction,
+                    expected="'holm' or 'fdr_bh'",
+                )
+            ]
+        )
+    return options
+
+
+@dataclass
+class Analysis:
+    """Everything a report shows: named tidy tables plus the alerts to show first."""
+
+    study: Study
+    options: RunOptions
+    findings: FindingsResult
+    tables: dict[str, pd.DataFrame]
+    alerts: list[str] = field(default_factory=list)
+    warnings: list[str] = field(default_factory=list)
+    timings: dict[str, float] = field(default_factory=dict)
+
+
+def _segment_catalogue() -> pd.DataFrame:
+    return pd.DataFrame(
+        {
+            "segment": list(SEGMENTS),
+            "segment_name": [s.name for s in SEGMENTS.values()],
+            "ring": [s.ring for s in SEGMENTS.values()],
+            "territory": [s.territory for s in SEGMENTS.values()],
+        }
+    )
+
+
+def analyse(
+    study: Study, options: RunOptions | None = None, progress: Progress | None = None
+) -> Analysis:
+    """Run every analysis of the report on a loaded study (pure: no files are written)."""
+    options = options or options_from_study(study)
+    say = progress or (lambda message: None)
+    timings: dict[str, float] = {}
+    caught: list[warnings.WarningMessage] = []
+    tables: dict[str, pd.DataFrame] = {}
+
+    def step(name: str, message: str, func: Callable[[], Any]) -> Any:
+        say(message)
+        start = time.perf_counter()
+        with warnings.catch_warnings(record=True) as record:
+            warnings.simplefilter("always", CohortWarning)
+            result = func()
+        caught.extend(record)
+        timings[name] = time.perf_counter() - start
+        return result
+
+    definitions = parse_findings(study.settings.extra.get("findings"))
+    swap_options = parse_swap_options(study.settings.extra.get("findings"))
+    findings = step(
+        "findings",
+        "classifying findings",
+        lambda: evaluate_findings(study.values, study.subjects, definitions),
+    )
+    strata_masks = finding_strata(study.paired, findings)
+    agreement = step(
+        "agreement",
+        f"agreement statistics (subject cluster bootstrap, B = {options.n_boot})",
+        lambda: agreement_table(
+            study.paired,
+            strata=options.strata,
+            n_boot=options.n_boot,
+            seed=options.seed,
+            confidence_level=options.confidence_level,
+            ratio_parameters=options.ratio_parameters,
+            error_ratio=options.error_ratio,
+            extra_strata=strata_masks,
+            regression_limits=options.regression_limits,
+        ),
+    )
+    detection = step(
+        "findings_agreement",
+        f"finding-level agreement (B = {options.n_boot})",
+        lambda: (
+            findings_agreement(
+                findings,
+                study.reference,
+                groups=study.groups,
+                n_boot=options.n_boot,
+                seed=options.seed,
+                confidence_level=options.confidence_level,
+            ).table
+        ),
+    )
+    missed = step(
+        "missed", "missed and extra findings", lambda: missed_findings(findings, study.reference)
+    )
+    swaps = step(
+        "swaps", "fat-water swap screen", lambda: swap_screen_with(study.paired, swap_options)
+    )
+    alerts_found = step(
+        "alerts",
+        "deceptive-agreement screen",
+        lambda: deceptive_agreement(
+            agreement,
+            detection,
+            ccc_min=options.ccc_min,
+            sensitivity_max=options.sensitivity_max,
+            bias_ratio=options.bias_ratio,
+        ),
+    )
+    alerts = [a.message for a in alerts_found]
+    for row in swaps.counts.itertuples():
+        if row.n_flagged:
+            alerts.append(
+                f"fat-water swap screen: {row.n_flagged} of {row.n_pairs} fat-fraction pairs of "
+                f"{row.method} flagged ({row.n_swap_suspect} closer to 100 minus the reference, "
+                f"{row.n_not_comparable} not comparable with a magnitude-only method); see "
+                "tables/swap_flags.csv and exclude them explicitly if justified"
+            )
+    segment_findings = findings.segments[
+        ["subject", "group", "method", "finding", "segment", "positive"]
+    ]
+    subject_findings = findings.subjects[["subject", "group", "method", "finding", "positive"]]
+    comparison = step(
+        "groups",
+        "group comparisons",
+        lambda: study_group_comparison(
+            study,
+            subject_findings=subject_findings,
+            segment_findings=segment_findings,
+            correction=options.correction,
+            confidence_level=options.confidence_level,
+            seed=options.seed,
+        ),
+    )
+
+    tables["agreement"] = agreement
+    tables["thresholds"] = thresholds_table(definitions)
+    tables["findings_segment"] = findings.segments
+    tables["findings_territory"] = findings.territories
+    tables["findings_subject"] = findings.subjects
+    tables["findings_agreement"] = detection
+    tables["missed_findings"] = missed
+    tables["swap_screen"] = swaps.counts
+    tables["swap_flags"] = swaps.flags
+    tables.update(comparison.tables())
+    tables["subjects_per_group"] = _subjects_per_group(study)
+    tables["coverage"] = study.coverage()
+    tables["missing_values"] = study.missing_values()
+    tables["exclusions"] = study.exclusions()
+    tables["input_warnings"] = problems_frame(study.warnings)
+    tables["record_accounting"] = pd.DataFrame([study.accounting()])
+    messages = list(dict.fromkeys(str(w.message) for w in caught))
+    messages.append(f"group comparison: {comparison.model_path}")
+    return Analysis(study, options, findings, tables, alerts, messages, timings)
+
+
+def _subjects_per_group(study: Study) -> pd.DataFrame:
+    table = (
+        study.subjects.groupby(["group", "field_strength"], sort=False)
+        .size()
+        .rename("n_subjects")
+        .reset_index()
+    )
+    order = {g: i for i, g in enumerate(study.groups)}
+    table = table.sort_values(
+        ["group", "field_strength"], key=lambda c: c.map(order) if c.name == "group" else c
+    )
+    return table.reset_index(drop=True)
+
+
+def analysis_options(options: RunOptions) -> Mapping[str, Any]:
+    return options.to_dict()

@@ -1,0 +1,131 @@
+"""``cohort run``: load, analyse and write a complete, reproducible output folder.
+
+Layout of the folder::
+
+    report.html        self-contained report (inline CSS and figures, no network)
+    methods.md         ready-to-edit methods text with references
+    manifest.json      inputs with SHA-256, settings, options, versions, times, warnings
+    tables/*.csv       every table (column names documented in the README)
+    tables.xlsx        the same tables, one sheet each
+    figures/*.png|svg  every figure (PNG at 300 dpi and SVG)
+
+The folder is written beside its final place and moved there at the end, so an interrupted
+run leaves no half report; an existing non-empty folder is replaced only with ``force``.
+"""
+
+from __future__ import annotations
+
+import shutil
+from collections.abc import Callable
+from dataclasses import dataclass
+from datetime import UTC, datetime
+from pathlib import Path
+
+from .manifest import build_manifest, write_manifest
+from .methods_text import methods_markdown
+from .outputs import publish, sha256, staging_folder, write_tables
+from .pipeline import Analysis, RunOptions, analyse
+from .report import render_report
+from .settings import StudySettings
+from .study import Study, load_study
+
+Progress = Callable[[str], None]
+
+
+@dataclass(frozen=True)
+class RunSummary:
+    """What a run wrote and what it found worth saying first."""
+
+    out: Path
+    report: Path
+    analysis: Analysis
+    n_tables: int
+    n_figures: int
+    alerts: tuple[str, ...]
+
+    def text(self) -> str:
+        study = self.analysis.study
+        lines = [
+            f"cohort run: {study.settings.title}",
+            f"  {len(study.subjects)} subjects, reference {study.reference!r}, "
+            f"compared {', '.join(repr(m) for m in study.test_methods)}",
+            f"  {self.n_tables} tables, {self.n_figures} figures, "
+            f"bootstrap B = {self.analysis.options.n_boot}, seed {self.analysis.options.seed}",
+        ]
+        if self.alerts:
+            lines.append(f"  {len(self.alerts)} warning(s) to read first:")
+            lines += [f"    ! {a}" for a in self.alerts]
+        else:
+            lines.append("  no deceptive-agreement or swap warning")
+        lines.append(f"  report: {self.report}")
+        return "\n".join(lines)
+
+
+def _now() -> str:
+    return datetime.now(UTC).isoformat(timespec="seconds")
+
+
+def run(
+    source: str | Path | StudySettings | Study,
+    out: str | Path,
+    options: RunOptions | None = None,
+    *,
+    force: bool = False,
+    progress: Progress | None = None,
+) -> RunSummary:
+    """Run the whole study and write the output folder ``out``; see the module docstring."""
+    say = progress or (lambda message: None)
+    started = _now()
+    study = source if isinstance(source, Study) else load_study(source)
+    if options is None:
+        from .pipeline import options_from_study
+
+        options = options_from_study(study)
+    inputs = {"values": study.settings.values, "subjects": study.settings.subjects}
+    if study.settings.study_file:
+        inputs["study_file"] = study.settings.study_file
+    before = {k: sha256(p) for k, p in inputs.items()}
+    staging = staging_folder(out, force)
+    try:
+        analysis = analyse(study, options, progress=say)
+        say("writing tables")
+        written = write_tables(analysis.tables, staging)
+        records = []
+        if options.figures:
+            from .figure_set import make_figures
+
+            records = make_figures(study, analysis.tables, staging / "figures", progress=say)
+        methods = methods_markdown(analysis)
+        (staging / "methods.md").write_text(methods, encoding="utf-8")
+        after = {k: sha256(p) for k, p in inputs.items()}
+        if after != before:
+            raise RuntimeError("an input file changed while the run read it; run again")
+        outputs = [str(p.relative_to(staging)) for p in staging.rglob("*") if p.is_file()]
+        outputs += ["report.html", "manifest.json"]
+        manifest = build_manifest(
+            inputs=inputs,
+            settings=study.settings.to_dict(),
+            options=options.to_dict(),
+            started=started,
+            finished=_now(),
+            warnings=[*analysis.alerts, *analysis.warnings, *(str(w) for w in study.warnings)],
+            outputs=outputs,
+            accounting=study.accounting(),
+        )
+        say("writing the report")
+        report = render_report(analysis, records, methods, manifest)
+        (staging / "report.html").write_text(report, encoding="utf-8")
+        write_manifest(manifest, staging / "manifest.json")
+        final = publish(staging, out)
+    except BaseException:
+        shutil.rmtree(staging, ignore_errors=True)
+        raise
+    n_tables = sum(1 for p in written if p.suffix == ".csv")
+    return RunSummary(
+        final,
+        final / "report.html",
+        analysis,
+        n_tables,
+        len(records),
+        tuple(analysis.alerts),
+    )
