@@ -38,7 +38,8 @@ FLAG_COLUMNS: tuple[str, ...] = (
 """Columns of :attr:`SwapScreen.flags`."""
 
 COUNT_COLUMNS: tuple[str, ...] = (
-    "method", "magnitude_only", "n_pairs", "n_flagged", *(f"n_{r}" for r in REASONS),
+    "method", "magnitude_only", "n_pairs", "n_flagged",
+    *(f"n_{r.replace('-', '_')}" for r in REASONS),
 )  # fmt: skip
 """Columns of :attr:`SwapScreen.counts`."""
 
@@ -120,7 +121,7 @@ def swap_screen(
             "n_flagged": int((rows_m & hit).sum()),
         }
         for r in REASONS:
-            row[f"n_{r}"] = int((rows_m & (reason == r)).sum())
+            row[f"n_{r.replace('-', '_')}"] = int((rows_m & (reason == r)).sum())
         rows.append(row)
     counts = pd.DataFrame(rows, columns=list(COUNT_COLUMNS))
     return SwapScreen(flags, counts, float(margin), tuple(magnitude_only_methods), magnitude_limit)

@@ -47,14 +47,20 @@ def test_field_offsets_are_removed_by_referencing(analysis):
 
 
 def test_missed_hemorrhage_is_found_and_flagged(analysis):
-    planted = pd.read_csv(analysis.study.settings.values.parent / "planted_lesions.csv", dtype={"subject": str})
+    planted = pd.read_csv(
+        analysis.study.settings.values.parent / "planted_lesions.csv", dtype={"subject": str}
+    )
     hem = set(map(tuple, planted.query("kind == 'hemorrhage'")[["subject", "segment"]].to_numpy()))
-    missed = analysis.tables["missed_findings"].query("finding == 'hemorrhage' and level == 'segment'")
+    missed = analysis.tables["missed_findings"].query(
+        "finding == 'hemorrhage' and level == 'segment'"
+    )
     missed_keys = set(zip(missed["subject"], missed["segment"], strict=True))
     assert missed_keys and missed_keys <= hem  # every miss is a planted lesion
     # the reference finds exactly the planted hemorrhage
     seg = analysis.tables["findings_segment"]
-    ref_pos = seg[(seg.method == demo.REFERENCE) & (seg.finding == "hemorrhage") & seg.positive.astype(bool)]
+    ref_pos = seg[
+        (seg.method == demo.REFERENCE) & (seg.finding == "hemorrhage") & seg.positive.astype(bool)
+    ]
     assert set(zip(ref_pos.subject, ref_pos.segment, strict=True)) == hem
     # missed ones are the near-threshold lesions: below the knee-derived limit
     det = analysis.tables["findings_agreement"]

@@ -70,8 +70,8 @@ def test_magnitude_only_methods_cannot_exceed_fifty_percent():
     counts = screen.counts.set_index("method")
     assert tuple(screen.counts.columns) == COUNT_COLUMNS
     assert counts.loc["mag", "n_pairs"] == 4 and counts.loc["mag", "n_flagged"] == 2
-    assert counts.loc["mag", "n_not-comparable"] == 1 and counts.loc["mag", "magnitude_only"]
-    assert counts.loc["fast", "n_swap-suspect"] == 1 and not counts.loc["fast", "magnitude_only"]
+    assert counts.loc["mag", "n_not_comparable"] == 1 and counts.loc["mag", "magnitude_only"]
+    assert counts.loc["fast", "n_swap_suspect"] == 1 and not counts.loc["fast", "magnitude_only"]
 
 
 @settings(max_examples=60, deadline=None)
