@@ -32,21 +32,31 @@ __all__ = [
     "PB_BOOTSTRAP_MIN_B",
     "PB_BOOTSTRAP_PAIR_BUDGET",
     "PB_DIRECT_MAX_N",
+    "PB_WEIGHTED_MAX_N",
     "MethodRegression",
     "deming",
     "passing_bablok",
 ]
 
 #: Up to this many pairs Passing-Bablok enumerates all slopes (O(n^2) memory and time);
-#: above it the selection algorithm of :class:`_FastSlopes` is used. Both give the same result
+#: above it the selection algorithm of :class:`_FastSlopes` is used, which is already faster
+#: at 1,700 pairs (benchmarks/regression_speed.py). Both give the same result
 #: (tests/test_regression.py checks that they agree exactly).
 PB_DIRECT_MAX_N = 1000
 
 #: Largest n_pairs x B (pairs re-fitted over all bootstrap resamples) that a Passing-Bablok
-#: cluster bootstrap may cost. Measured by benchmarks/regression_speed.py on a 2-core machine:
-#: one resample of 170,000 pairs takes about 0.5 s, so the budget of 2e8 pair-fits is about
-#: ten minutes there. Above the budget fewer resamples are run and the CI says how many.
+#: cluster bootstrap may cost. Measured by benchmarks/regression_speed.py on a shared 2-core
+#: machine: one resample of 170,000 pairs takes 0.5-0.6 s, so 2e8 pair fits (B = 1176 at
+#: 170,000 pairs) take 10-12 minutes there, and B = 2000 would take 17-21. Above the budget
+#: fewer resamples are run and the CI says how many; at 1.7 million pairs only 117 fit.
 PB_BOOTSTRAP_PAIR_BUDGET = 200_000_000
+
+#: Up to this many pairs the Passing-Bablok cluster bootstrap enumerates the slopes once and
+#: weights them per resample (``_pb_weighted_draws``: each slope between a point of subject s
+#: and one of subject t counts c_s c_t times when s is drawn c_s times), instead of refitting:
+#: B = 2000 takes about 1 s at 800 pairs; memory O(n^2) for the slopes (about 0.2 GB at
+#: the limit).
+PB_WEIGHTED_MAX_N = 4000
 
 #: Fewest resamples for which a 95 % percentile interval is still reported; below it the
 #: bootstrap is not run at all and the analytic interval is returned with a note.
@@ -859,11 +869,12 @@ def passing_bablok(
     statistics are found by selection without enumerating them: the number of slopes below t
     is an inversion count of y - t x in x order (O(n log n), numpy merge levels); counts at
     sample quantiles of random pair slopes, then at points from a monotone interpolation of
-    the counts, narrow a bracket around each wanted rank until it holds at most about n
+    the counts, narrow a bracket around each wanted rank until it holds at most about n/8
     slopes; those are enumerated (a window in the order of y - t x, or the discordant pairs
     of two such orders), the exact count below the bracket is recovered and the rank read off
     and verified (see ``_FastSlopes`` for the floating-point argument and for large clusters
-    of tied slopes). Memory O(n); time about 10 s at 1.7 million pairs.
+    of tied slopes). Memory O(n); on a shared 2-core machine about 0.04 s at 1,700 pairs,
+    1 s at 170,000 and 16 s at 1.7 million, slope and interval together.
 
     Intervals: by default the rank-based interval above, which treats pairs as independent.
     With ``n_boot > 0``: percentile interval of a bootstrap that resamples subjects with
@@ -871,7 +882,9 @@ def passing_bablok(
     ``default_rng(seed)``. A cluster bootstrap refits the whole estimator B times; if
     n_pairs x n_boot exceeds ``max_pair_resamples`` only as many resamples as fit are run
     (the interval's ``method`` gives the B actually run and a note says so), and below
-    ``PB_BOOTSTRAP_MIN_B`` resamples the analytic interval is returned with a note.
+    ``PB_BOOTSTRAP_MIN_B`` resamples the analytic interval is returned with a note (with the
+    default budget: B up to 1176 at 170,000 pairs; none at 1.7 million, where 117 would fit).
+    Raise ``max_pair_resamples`` to run more, knowingly.
 
     Validated against: an independent O(n^2) computation with ties, vertical slopes and
     slopes of -1 (exact equality, also for the selection algorithm); the creatinine example
@@ -894,6 +907,11 @@ def passing_bablok(
     if fit.reason:
         return _nan_result(_PB, n, _PB, fit.reason, cl, analytic)
     notes = list(fit.notes)
+    if n_boot > 0 and n <= PB_WEIGHTED_MAX_N:
+        slope_ci, int_ci = _bootstrap(x, y, codes, int(n_boot), seed, cl, weighted_pb=True)
+        return MethodRegression(
+            _PB, fit.slope, fit.intercept, slope_ci, int_ci, n, "; ".join(notes)
+        )
     if n_boot > 0:
         b_fit = max(0, int(max_pair_resamples) // max(n, 1))
         b_run = min(int(n_boot), b_fit)
@@ -907,10 +925,15 @@ def passing_bablok(
             return MethodRegression(
                 _PB, fit.slope, fit.intercept, slope_ci, int_ci, n, "; ".join(notes)
             )
+        budget = (
+            f"more than {PB_WEIGHTED_MAX_N} pairs and no refit budget"
+            if max_pair_resamples == 0
+            else f"{n} pairs allow only B={b_run} resamples within the budget of "
+            f"{max_pair_resamples} pair fits (minimum {PB_BOOTSTRAP_MIN_B})"
+        )
         notes.append(
-            f"cluster bootstrap not run: {n} pairs allow only B={b_run} resamples within the "
-            f"budget of {max_pair_resamples} pair fits (minimum {PB_BOOTSTRAP_MIN_B}); the "
-            "rank-based interval below ignores the clustering of segments in subjects"
+            f"cluster bootstrap not run ({budget}); the rank-based interval ignores the "
+            "clustering of segments in subjects"
         )
     elif codes is not None:
         notes.append("rank-based interval ignores the clustering of segments in subjects")
@@ -975,7 +998,8 @@ def deming(
     errors with a t quantile on n - 2 degrees of freedom (Linnet K. Estimation of the linear
     relationship between the measurements of two methods with proportional errors. Stat Med
     1990;9:1463-1473; Linnet K. Evaluation of regression procedures for methods comparison
-    studies. Clin Chem 1993;39:424-432), pairs treated as independent. With ``n_boot > 0``:
+    studies. Clin Chem 1993;39:424-432; bibliographic details from memory; the n - 2 df are
+    our choice), pairs treated as independent. With ``n_boot > 0``:
     subject-cluster bootstrap percentile interval, numpy ``default_rng(seed)``, computed from
     per-subject sums.
 
@@ -1031,6 +1055,93 @@ def deming(
 # ---------------------------------------------------------------------------- bootstrap
 
 
+def _pb_weighted_draws(
+    x: np.ndarray, y: np.ndarray, codes: np.ndarray, counts: np.ndarray
+) -> np.ndarray:
+    """Passing-Bablok (slope, intercept) of each resample given its subject counts.
+
+    The slopes are enumerated and sorted once; in a resample where subject s is drawn c_s
+    times, the slope between a point of s and a point of t occurs c_s c_t times (c_s^2
+    within s; copies of one point are identical and ignored, as in the procedure), so the
+    shifted median is a weighted order statistic and the intercept a weighted median of
+    y - b x. The order statistic is found blockwise: per block of sorted slopes, the number
+    of slopes of each subject pair is tabulated once, so a resample's block weights are one
+    matrix product. Equal to refitting the expanded resample (tests/test_regression.py),
+    except that the sign of a vertical slope follows the original order of the pair.
+    """
+    i, j = np.triu_indices(x.size, 1)
+    dx, dy = x[j] - x[i], y[j] - y[i]
+    keep = (dx != 0) | (dy != 0)
+    i, j, dx, dy = i[keep], j[keep], dx[keep], dy[keep]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        slope = np.where(dx != 0, dy / dx, np.where(dy > 0, np.inf, -np.inf)) + 0.0
+    keep = slope != -1.0
+    slope, ci, cj = slope[keep], codes[i[keep]], codes[j[keep]]
+    del i, j, dx, dy, keep
+    order = np.argsort(slope, kind="stable")
+    slope = slope[order]
+    lo_c, hi_c = np.minimum(ci, cj)[order], np.maximum(ci, cj)[order]
+    del ci, cj, order
+    n_clusters = counts.shape[1]
+    pair_codes, q = np.unique(lo_c.astype(np.int64) * n_clusters + hi_c, return_inverse=True)
+    qs, qt = pair_codes // n_clusters, pair_codes % n_clusters
+    n_pairs_q = pair_codes.size
+    n_below = int(np.searchsorted(slope, -1.0, side="left"))
+    block = 1024
+    n_blocks = max(1, -(-slope.size // block))
+    table = (
+        np.bincount(
+            (np.arange(slope.size) // block) * n_pairs_q + q, minlength=n_blocks * n_pairs_q
+        )
+        .reshape(n_blocks, n_pairs_q)
+        .astype(float)
+    )
+    below_q = np.bincount(q[:n_below], minlength=n_pairs_q).astype(float)
+    out = np.full((counts.shape[0], 2), np.nan)
+    c_all = counts.astype(float)
+    wq_all = c_all[:, qs] * c_all[:, qt]  # weight of one slope of each subject pair
+    block_w = np.cumsum(wq_all @ table.T, axis=1)  # cumulative weight by block
+    total = block_w[:, -1]
+    below = wq_all @ below_q
+    odd = total % 2 == 1
+    r1 = np.where(odd, (total + 1) // 2, total // 2) + below
+    r2 = np.where(odd, r1, r1 + 1)
+    pw = counts[:, codes]
+    m = pw.sum(axis=1)
+    drawn = pw > 0
+    x_span = np.where(drawn, x[None, :], -np.inf).max(axis=1) - np.where(
+        drawn, x[None, :], np.inf
+    ).min(axis=1)
+    ok = (total > 0) & (r2 <= total) & (m >= 3) & (x_span > 0)
+
+    def order_statistic(k: int, rank: float) -> float:
+        kb = int(np.searchsorted(block_w[k], rank, side="left"))
+        before = block_w[k, kb - 1] if kb else 0.0
+        part = slice(kb * block, min((kb + 1) * block, slope.size))
+        cum = np.cumsum(wq_all[k, q[part]])
+        return float(slope[part][min(int(np.searchsorted(cum, rank - before)), cum.size - 1)])
+
+    b = np.full(counts.shape[0], np.nan)
+    for k in np.flatnonzero(ok):
+        b[k] = 0.5 * (order_statistic(k, r1[k]) + order_statistic(k, r2[k]))
+    ok &= np.isfinite(b)
+    chunk = max(1, 2_000_000 // max(x.size, 1))
+    for start in range(0, counts.shape[0], chunk):
+        rows = slice(start, start + chunk)
+        v = y[None, :] - np.where(ok[rows], b[rows], 0.0)[:, None] * x[None, :]
+        vo = np.argsort(v, axis=1, kind="stable")
+        vs = np.take_along_axis(v, vo, axis=1)
+        cw = np.cumsum(np.take_along_axis(pw[rows], vo, axis=1), axis=1)
+        mm = cw[:, -1]
+        lo_rank = np.where(mm % 2 == 1, (mm + 1) // 2, mm // 2)
+        hi_rank = np.where(mm % 2 == 1, lo_rank, lo_rank + 1)
+        a_lo = np.take_along_axis(vs, (cw < lo_rank[:, None]).sum(axis=1)[:, None], axis=1)[:, 0]
+        a_hi = np.take_along_axis(vs, (cw < hi_rank[:, None]).sum(axis=1)[:, None], axis=1)[:, 0]
+        out[rows, 0] = np.where(ok[rows], b[rows], np.nan)
+        out[rows, 1] = np.where(ok[rows], 0.5 * (a_lo + a_hi), np.nan)
+    return out
+
+
 def _bootstrap(
     x: np.ndarray,
     y: np.ndarray,
@@ -1041,6 +1152,7 @@ def _bootstrap(
     *,
     refit=None,
     deming_ratio: float | None = None,
+    weighted_pb: bool = False,
 ) -> tuple[ConfidenceInterval, ConfidenceInterval]:
     """Cluster bootstrap percentile intervals for (slope, intercept).
 
@@ -1085,6 +1197,12 @@ def _bootstrap(
                     )
                 )
             boot[b] = slope, (y.mean() + sy / m) - slope * (x.mean() + sx / m)
+    elif weighted_pb:
+        draws = np.stack(
+            [np.bincount(rng.integers(0, n_clusters, n_clusters), minlength=n_clusters)
+             for _ in range(n_boot)]
+        )  # fmt: skip
+        boot[:] = _pb_weighted_draws(x, y, codes, draws)
     else:
         order = np.argsort(codes, kind="stable")
         size = np.bincount(codes, minlength=n_clusters)

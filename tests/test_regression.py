@@ -55,8 +55,9 @@ def brute_pb(x, y, cl=0.95):
 
 
 def textbook_deming(x, y, ratio=1.0):
-    """Deming slope in the textbook form with sample (co)variances (Linnet 1993, eq. for
-    lambda = var(error y) / var(error x)); intercept ybar - b xbar."""
+    """Deming (1943) slope in its usual textbook form with sample (co)variances (e.g.
+    Cornbleet & Gochman, Clin Chem 1979;25:432 (memory)), written here for
+    lambda = var(error y) / var(error x); intercept ybar - b xbar."""
     c = np.cov(x, y)
     sxx, syy, sxy = c[0, 0], c[1, 1], c[0, 1]
     b = (syy - ratio * sxx + math.sqrt((syy - ratio * sxx) ** 2 + 4 * ratio * sxy**2)) / (2 * sxy)
@@ -355,7 +356,11 @@ def test_bootstrap_without_seed_records_the_seed_it_used():
     assert again.slope_ci == fit.slope_ci
 
 
-def test_pb_bootstrap_budget_reduces_b_and_says_so():
+def test_pb_bootstrap_budget_reduces_b_and_says_so(monkeypatch):
+    import cohort.regression
+
+    # the refit budget applies above the weighted-slope limit; lower the limit to reach it
+    monkeypatch.setattr(cohort.regression, "PB_WEIGHTED_MAX_N", 0)
     x, y, subject = cohort_data()  # 204 pairs
     budget = 204 * 250
     fit = passing_bablok(x, y, subject=subject, n_boot=1000, seed=1, max_pair_resamples=budget)
@@ -436,7 +441,7 @@ def deming_data(n=80, seed=3):
 
 @pytest.mark.parametrize("ratio", [0.25, 1.0, 2.25, 40.0])
 def test_deming_equals_textbook_closed_form(ratio):
-    # independent textbook formula (Linnet 1993 Clin Chem 39:424; Deming 1943)
+    # independent textbook formula (Deming 1943; Cornbleet & Gochman 1979 (memory))
     x, y = deming_data()
     fit = deming(x, y, error_ratio=ratio)
     b, a = textbook_deming(x, y, ratio)
@@ -476,7 +481,7 @@ def test_deming_equals_scipy_odr_while_it_imports():
 def test_deming_limits_of_the_error_ratio():
     # with ratio = var(e_y)/var(e_x): ratio -> infinity (all error in y) gives OLS of y on x,
     # s_xy / s_xx; ratio -> 0 (all error in x) gives the inverse of OLS of x on y,
-    # s_yy / s_xy (Linnet 1993; limits of the closed form). Not the other way round.
+    # s_yy / s_xy (limits of the closed form, derived in the docstring). Not the reverse.
     x, y = deming_data(seed=4)
     c = np.cov(x, y)
     ols_y_on_x = c[0, 1] / c[0, 0]
@@ -488,7 +493,7 @@ def test_deming_limits_of_the_error_ratio():
 
 
 def test_deming_jackknife_interval_equals_a_leave_one_out_loop():
-    # jackknife SE (Linnet 1990 Stat Med 9:1463) recomputed by refitting n times with the
+    # jackknife SE (Linnet 1990 Stat Med (memory)) recomputed by refitting n times with the
     # textbook formula; CI = estimate -+ t(0.975, n - 2) SE
     x, y = deming_data(n=40, seed=6)
     n = x.size
@@ -554,3 +559,39 @@ def test_inversion_count_and_pairs_equal_the_definition(n):
     assert len(p) == len(expected) and set(zip(p.tolist(), q.tolist(), strict=True)) == expected
     if len(expected) > 1:
         assert regression._inversion_pairs(r, cap=len(expected) - 1) is None
+
+
+def test_weighted_slope_bootstrap_equals_refitting_each_resample():
+    # the weighted-slope cluster bootstrap must give the Passing-Bablok fit (Passing & Bablok
+    # 1983) of each expanded resample, ties and not-estimable resamples included
+    from cohort.regression import _pb_point, _pb_weighted_draws, _ragged_ranges
+
+    rng = np.random.default_rng(3)
+    for trial in range(60):
+        n_subj, per = int(rng.integers(2, 8)), int(rng.integers(1, 6))
+        codes = np.repeat(np.arange(n_subj), per)
+        x = np.round(rng.normal(10, 3, codes.size), 0 if trial % 2 else 1)
+        y = np.round(0.5 + 1.1 * x + rng.normal(0, 1, codes.size), 1)
+        counts = np.stack(
+            [np.bincount(rng.integers(0, n_subj, n_subj), minlength=n_subj) for _ in range(4)]
+        )
+        got = _pb_weighted_draws(x, y, codes, counts)
+        order = np.argsort(codes, kind="stable")
+        size = np.bincount(codes, minlength=n_subj)
+        start = np.cumsum(size) - size
+        for k, c in enumerate(counts):
+            draw = np.repeat(np.arange(n_subj), c)
+            idx = order[_ragged_ranges(start[draw], size[draw])]
+            np.testing.assert_allclose(got[k], _pb_point(x[idx], y[idx]), equal_nan=True)
+
+
+def test_passing_bablok_cluster_interval_above_the_weighted_limit_says_why():
+    from cohort.regression import PB_WEIGHTED_MAX_N
+
+    rng = np.random.default_rng(0)
+    n = PB_WEIGHTED_MAX_N + 10
+    x = rng.normal(30, 8, n)
+    y = x + rng.normal(0, 2, n)
+    fit = passing_bablok(x, y, subject=np.arange(n) // 17, n_boot=50, seed=1, max_pair_resamples=0)
+    assert "rank-based" in fit.slope_ci.method
+    assert "cluster bootstrap not run" in fit.note
