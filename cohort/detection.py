@@ -687,10 +687,11 @@ def missed_findings(
 def finding_strata(paired: pd.DataFrame, findings_result: FindingsResult) -> dict[str, np.ndarray]:
     """Masks over ``paired`` rows of reference-positive and reference-negative segments.
 
-    For each finding, ``finding=<name>:positive`` selects the rows of the finding's parameter
+    For each finding, ``finding=<name>:positive`` selects the rows (of every parameter)
     whose segment the *reference* method classifies as positive, ``:negative`` those it
-    classifies as negative (unclassified segments are in neither). Pass the result as
-    ``extra_strata`` to the agreement table.
+    classifies as negative (unclassified segments are in neither), so that, say, fat-fraction
+    agreement in hemorrhagic segments can be read beside R2* agreement there. Pass the
+    result as ``extra_strata`` to the agreement table.
     """
     for column in ("parameter", "reference", "subject", "segment"):
         if column not in paired.columns:
@@ -717,13 +718,8 @@ def finding_strata(paired: pd.DataFrame, findings_result: FindingsResult) -> dic
             dtype="boolean",
         )
         status = positive.reindex(key)
-        is_param = paired["parameter"].eq(d.parameter).to_numpy()
-        out[f"finding={d.name}:positive"] = is_param & status.eq(True).fillna(False).to_numpy(
-            dtype=bool
-        )
-        out[f"finding={d.name}:negative"] = is_param & status.eq(False).fillna(False).to_numpy(
-            dtype=bool
-        )
+        out[f"finding={d.name}:positive"] = status.eq(True).fillna(False).to_numpy(dtype=bool)
+        out[f"finding={d.name}:negative"] = status.eq(False).fillna(False).to_numpy(dtype=bool)
     return out
 
 

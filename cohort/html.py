@@ -119,7 +119,8 @@ table.data th { background: #f4f4f4; position: sticky; top: 0; }
 table.data td.num { text-align: right; font-variant-numeric: tabular-nums; }
 caption { text-align: left; font-weight: 600; padding: 4px 0; }
 figure { margin: 12px 0 20px; }
-figure img { max-width: 100%; height: auto; border: 1px solid #eee; }
+figure img { max-width: min(100%, 760px); height: auto; border: 1px solid #eee; }
+figure.wide img { max-width: 100%; }
 figcaption { font-size: 13px; color: var(--muted); }
 .more { font-size: 13px; color: var(--muted); }
 code, pre { font-family: ui-monospace, Menlo, Consolas, monospace; font-size: 13px; }
