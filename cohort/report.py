@@ -20,9 +20,17 @@ from .pipeline import Analysis
 from .units import PARAMETERS
 
 
-def with_ci(frame: pd.DataFrame, column: str, digits: int = 3, suffix: str = "_ci") -> pd.Series:
-    """``"estimate (low to high)"`` text for a column and its ``<column>_ci_low/_high``."""
-    low, high = frame.get(f"{column}{suffix}_low"), frame.get(f"{column}{suffix}_high")
+def with_ci(
+    frame: pd.DataFrame,
+    column: str,
+    digits: int = 3,
+    suffix: str = "_ci",
+    bounds: tuple[str, str] | None = None,
+) -> pd.Series:
+    """``"estimate (low to high)"`` text for a column and its ``<column>_ci_low/_high``
+    (or the two columns named in ``bounds``)."""
+    low_name, high_name = bounds or (f"{column}{suffix}_low", f"{column}{suffix}_high")
+    low, high = frame.get(low_name), frame.get(high_name)
     if low is None or high is None:
         return frame[column].map(lambda v: fmt(v, digits))
     return pd.Series(
@@ -271,28 +279,146 @@ def _findings_section(analysis: Analysis, figures: Sequence[Any]) -> str:
     return "\n".join(parts)
 
 
+def fmt_p(p: object) -> str:
+    """A p-value as text: below 0.0001 as "<0.0001" (a p of exactly 0 is a rounding)."""
+    if p is None or pd.isna(p):
+        return "–"
+    return "<0.0001" if float(p) < 1e-4 else fmt(float(p))
+
+
+def _p_text(frame: pd.DataFrame) -> pd.DataFrame:
+    out = frame.copy()
+    for column in ("p_value", "p_adjusted", "mcnemar_p"):
+        if column in out:
+            out[column] = out[column].map(fmt_p)
+    return out
+
+
+def _descriptives_view(desc: pd.DataFrame, groups: Sequence[str]) -> pd.DataFrame:
+    """Median [Q1, Q3] (n) per group, one row per parameter, method and summary."""
+    cell = desc.assign(
+        text=[
+            "–" if n == 0 else f"{fmt(m)} [{fmt(lo)}, {fmt(hi)}] (n={int(n)})"
+            for m, lo, hi, n in zip(
+                desc["median"], desc["q1"], desc["q3"], desc["n_subjects"], strict=True
+            )
+        ]
+    )
+    wide = cell.pivot_table(
+        index=["parameter", "unit", "method", "summary"],
+        columns="group",
+        values="text",
+        aggfunc="first",
+        sort=False,
+    )
+    wide = wide[[g for g in groups if g in wide.columns]].reset_index()
+    wide.columns.name = None
+    return wide
+
+
+COMPARISON_VIEW = {
+    "parameter": "parameter",
+    "method": "method",
+    "summary": "summary",
+    "test": "test",
+    "comparison": "comparison",
+    "statistic": "statistic",
+    "p_value": "p",
+    "p_adjusted": "p adjusted",
+    "family": "correction family",
+    "effect": "effect size (95% CI)",
+    "note": "note",
+}
+
+MODEL_VIEW = {
+    "parameter": "parameter",
+    "method": "method",
+    "finding": "finding",
+    "model": "model",
+    "path": "path",
+    "term": "term",
+    "estimate_ci": "estimate (95% CI)",
+    "p_value": "p",
+    "p_adjusted": "p adjusted",
+    "n_subjects": "subjects",
+    "note": "note",
+}
+
+
 def _groups_section(analysis: Analysis, figures: Sequence[Any]) -> str:
-    parts = []
-    if "group_descriptives" in analysis.tables:
-        parts.append(
-            table(analysis.tables["group_descriptives"], caption="Per-subject summaries by group")
-        )
-    if "group_comparison" in analysis.tables:
+    t = analysis.tables
+    parts = [
+        "<p>Per-subject summaries (mean over segments, maximum segment, mean over the culprit "
+        "territory) are compared between groups; every row, with all columns, is in "
+        "<code>tables/group_*.csv</code> and <code>tables/finding_*.csv</code>.</p>"
+    ]
+    if "group_descriptives" in t:
         parts.append(
             table(
-                analysis.tables["group_comparison"],
+                _descriptives_view(t["group_descriptives"], analysis.study.groups),
+                caption="Per-subject summaries by group: median [Q1, Q3] (n subjects)",
+            )
+        )
+    if "group_comparison" in t:
+        comp = t["group_comparison"].copy()
+        comp["effect"] = [
+            "–" if pd.isna(e) else f"{name} {fmt(e)} ({fmt(lo)} to {fmt(hi)})"
+            for e, name, lo, hi in zip(
+                comp["effect_size"],
+                comp["effect_size_name"],
+                comp["effect_ci_low"],
+                comp["effect_ci_high"],
+                strict=True,
+            )
+        ]
+        parts.append(
+            table(
+                _p_text(comp),
+                columns=COMPARISON_VIEW,
                 caption="Group comparisons (raw and adjusted p-values)",
             )
         )
-    if "group_models" in analysis.tables:
+    if "finding_proportions" in t and len(t["finding_proportions"]):
+        prop = t["finding_proportions"].copy()
+        prop["proportion_ci"] = with_ci(prop, "proportion", bounds=("ci_low", "ci_high"))
         parts.append(
             table(
-                analysis.tables["group_models"],
-                caption="Segment-level models respecting clustering",
+                prop,
+                columns={
+                    "finding": "finding",
+                    "method": "method",
+                    "group": "group",
+                    "n_subjects": "subjects",
+                    "n_positive": "positive",
+                    "proportion_ci": "proportion (95% CI)",
+                },
+                caption="Subjects positive for each finding, by group",
             )
         )
-    if not parts:
-        parts.append("<p>No group comparison was run.</p>")
+    if "finding_group_tests" in t and len(t["finding_group_tests"]):
+        parts.append(
+            table(
+                _p_text(t["finding_group_tests"]),
+                columns={
+                    "finding": "finding",
+                    "method": "method",
+                    "test": "test",
+                    "comparison": "comparison",
+                    "p_value": "p",
+                    "p_method": "p-value method",
+                    "p_adjusted": "p adjusted",
+                    "note": "note",
+                },
+                caption="Proportions of positive subjects between groups (Fisher)",
+            )
+        )
+    if "group_models" in t and len(t["group_models"]):
+        models = t["group_models"].copy()
+        models["estimate_ci"] = with_ci(models, "estimate", bounds=("ci_low", "ci_high"))
+        models = _p_text(models)
+        parts.append(
+            table(models, columns=MODEL_VIEW, caption="Segment-level models respecting clustering")
+        )
     parts.append(_figures(figures, "groups"))
     return "\n".join(parts)
 
