@@ -78,6 +78,22 @@ def cmd_run(args: argparse.Namespace) -> int:
 
     settings = settings_from_args(args)
     study = load_study(settings)
+    codes_path = None
+    if args.pseudonymize:
+        from pathlib import Path
+
+        from .pseudonyms import load_key, pseudonymize_study
+
+        study, codes = pseudonymize_study(study, load_key(args.key_file))
+        out = Path(args.out).resolve()
+        codes_path = (
+            Path(args.code_list).resolve()
+            if args.code_list
+            else out.with_name(f"{out.name}-pseudonym-codes.csv")
+        )
+        if out == codes_path.parent or out in codes_path.parents:
+            print("cohort: --code-list must be outside the output folder", file=sys.stderr)
+            return 2
     options = options_from_study(
         study,
         seed=args.seed,
@@ -90,10 +106,21 @@ def cmd_run(args: argparse.Namespace) -> int:
             print(f"[cohort] {message} ...", file=sys.stderr, flush=True)
 
     try:
-        summary = run(study, args.out, options, force=args.force, progress=progress)
+        summary = run(
+            study,
+            args.out,
+            options,
+            force=args.force,
+            progress=progress,
+            pseudonymized=args.pseudonymize,
+        )
     except OutputExistsError as exc:
         print(f"cohort: {exc}", file=sys.stderr)
         return 2
+    if codes_path is not None:
+        codes_path.parent.mkdir(parents=True, exist_ok=True)
+        codes.to_csv(codes_path, index=False)
+        print(f"  pseudonym code list (keep it apart from the report): {codes_path}")
     print(summary.text())
     print(f"\n{CAUTION}")
     return 0
@@ -141,6 +168,16 @@ def build_parser() -> argparse.ArgumentParser:
     run.add_argument("--no-figures", action="store_true", help="tables, methods and manifest only")
     run.add_argument("--force", action="store_true", help="replace a non-empty output folder")
     run.add_argument("--quiet", action="store_true", help="no progress messages")
+    run.add_argument(
+        "--pseudonymize",
+        action="store_true",
+        help="replace subject IDs in every output by keyed codes (key: --key-file or "
+        "the environment variable COHORT_PSEUDONYM_KEY)",
+    )
+    run.add_argument("--key-file", help="file holding the pseudonymisation key")
+    run.add_argument(
+        "--code-list", help="where to write the ID-to-code list (default: beside --out)"
+    )
     run.set_defaults(func=cmd_run)
 
     demo = sub.add_parser("demo", help="write the invented demo cohort to a folder")

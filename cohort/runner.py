@@ -72,6 +72,7 @@ def run(
     *,
     force: bool = False,
     progress: Progress | None = None,
+    pseudonymized: bool = False,
 ) -> RunSummary:
     """Run the whole study and write the output folder ``out``; see the module docstring."""
     say = progress or (lambda message: None)
@@ -105,7 +106,7 @@ def run(
         manifest = build_manifest(
             inputs=inputs,
             settings=study.settings.to_dict(),
-            options=options.to_dict(),
+            options={**options.to_dict(), "pseudonymized": pseudonymized},
             started=started,
             finished=_now(),
             warnings=[*analysis.alerts, *analysis.warnings, *(str(w) for w in study.warnings)],
