@@ -7,6 +7,7 @@ from __future__ import annotations
 import hashlib
 import io
 import json
+import re
 import shutil
 from pathlib import Path
 
@@ -230,3 +231,29 @@ def test_report_renders_in_headless_chromium(demo_run, tmp_path):
     low, high = image.getextrema()
     assert high - low > 100  # not a blank page
     image.save(tmp_path / "report.png")
+
+
+def test_every_output_column_is_documented_in_the_readme(demo_run):
+    _, summary = demo_run
+    readme = (Path(__file__).resolve().parents[1] / "README.md").read_text(encoding="utf-8")
+    undocumented = []
+    for path in sorted((summary.out / "tables").glob("*.csv")):
+        if f"`{path.stem}`" not in readme:
+            undocumented.append(path.stem)
+        for column in pd.read_csv(path, nrows=0).columns:
+            base = column
+            for suffix in (
+                "_analytic_ci_low",
+                "_analytic_ci_high",
+                "_cluster_ci_low",
+                "_cluster_ci_high",
+                "_ci_low",
+                "_ci_high",
+            ):
+                if column.endswith(suffix) and column != suffix.lstrip("_"):
+                    base = column[: -len(suffix)]
+                    break
+            words = {column, base}
+            if not any(re.search(rf"(?<![\w-]){re.escape(w)}(?![\w-])", readme) for w in words):
+                undocumented.append(f"{path.stem}.{column}")
+    assert undocumented == []
