@@ -151,6 +151,13 @@ class Study:
             f"  input values: {counts['records_in']} = {counts['used']} used + "
             f"{counts['missing']} missing (blank) + {counts['excluded']} excluded"
         )
+        missing = self.missing_values()
+        if len(missing):
+            by = missing.groupby(["method", "parameter"], sort=False)["n_missing"].sum()
+            lines.append(
+                "    missing (blank) by method and parameter: "
+                + ", ".join(f"{m} {p} {n}" for (m, p), n in by.items())
+            )
         reasons = self.exclusions().query("status == 'excluded'")["reason"].value_counts()
         lines += [f"    excluded: {n} x {reason}" for reason, n in reasons.items()]
         lines.append(

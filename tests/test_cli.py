@@ -33,6 +33,12 @@ def test_check_on_the_bundled_demo_exits_0_with_a_summary():
     assert f"{len(study.subjects)} subjects" in result.stdout
     assert "reference method 'reference-fit'" in result.stdout
     assert "Research use only" in result.stdout
+    # the demo's fast method lacks the apex in one subject in eight: 6 blanks per parameter
+    assert (
+        "missing (blank) by method and parameter: "
+        "quickmap ff 6, quickmap field 6, quickmap r2star 6"
+        in result.stdout
+    )
 
 
 def test_check_with_flags_says_the_same_as_with_a_study_file(tmp_path, capsys):

@@ -54,6 +54,19 @@ def test_run_writes_every_output(demo_run):
     assert not [p for p in out.parent.iterdir() if "partial" in p.name]  # staging folder gone
 
 
+def test_a_run_leaves_its_inputs_unchanged(tmp_path):
+    study_file = write_demo(tmp_path / "demo", n_subjects=6)
+    files = sorted(study_file.parent.iterdir())
+    before = [hashlib.sha256(p.read_bytes()).hexdigest() for p in files]
+    run(
+        study_file,
+        tmp_path / "out",
+        options_from_study(load_study(study_file), n_boot=0, figures=False),
+    )
+    assert [hashlib.sha256(p.read_bytes()).hexdigest() for p in files] == before
+    assert sorted(study_file.parent.iterdir()) == files
+
+
 def test_manifest_records_inputs_settings_and_versions(demo_run):
     study_file, summary = demo_run
     manifest = json.loads((summary.out / "manifest.json").read_text())
