@@ -46,6 +46,7 @@ from .bootstrap import (
     resample_counts,
 )
 from .findings import SEGMENT_COLUMNS, FindingsResult, summarise
+from .proportions import wilson_interval as _wilson
 from .results import CohortWarning, ConfidenceInterval, NotEstimableWarning, warn_not_estimable
 from .segments import SEGMENTS
 from .thresholds import FAT, FIELD_PERTURBATION, HEMORRHAGE
@@ -95,27 +96,10 @@ def _z(confidence_level: float) -> float:
 
 
 def wilson_interval(successes: int, n: int, confidence_level: float = 0.95) -> ConfidenceInterval:
-    """Wilson score interval for a binomial proportion.
-
-    ``(x + z^2/2) / (n + z^2) -/+ z / (n + z^2) * sqrt(x (n - x) / n + z^2 / 4)``.
-    Wilson EB. Probable inference, the law of succession, and statistical inference. J Am
-    Stat Assoc 1927;22:209-212; Newcombe RG. Two-sided confidence intervals for the single
-    proportion: comparison of seven methods. Stat Med 1998;17:857-872 (method 3).
-    Validated against Newcombe's Table I and ``statsmodels`` ``proportion_confint``.
-    """
+    """Wilson score interval (:func:`cohort.proportions.wilson_interval`), labelled for units
+    treated as independent."""
     check_options(confidence_level, 0)
-    if n < 0 or successes < 0 or successes > n:
-        raise ValueError(f"successes must be between 0 and n, got {successes} of {n}")
-    if n == 0:
-        return ConfidenceInterval.not_estimable("no units", confidence_level, WILSON_METHOD)
-    z = _z(confidence_level)
-    z2 = z * z
-    centre = (successes + z2 / 2.0) / (n + z2)
-    half = z / (n + z2) * math.sqrt(successes * (n - successes) / n + z2 / 4.0)
-    # the limits are exactly 0 at x = 0 and 1 at x = n (rounding would leave 1e-17)
-    low = 0.0 if successes == 0 else max(0.0, centre - half)
-    high = 1.0 if successes == n else min(1.0, centre + half)
-    return ConfidenceInterval(low, high, confidence_level, WILSON_METHOD)
+    return _wilson(successes, n, confidence_level, method=WILSON_METHOD)
 
 
 @dataclass(frozen=True)

@@ -50,6 +50,7 @@ from statsmodels.tools.sm_exceptions import ConvergenceWarning, IterationLimitWa
 
 from .bootstrap import DEFAULT_SEED
 from .multiplicity import HOLM, adjust_table, check_correction
+from .proportions import wilson_interval as _wilson
 from .results import ConfidenceInterval, NotEstimableWarning, warn_not_estimable
 from .segments import SEGMENTS, TERRITORIES
 from .study import Study
@@ -655,23 +656,10 @@ def _separated_interval(delta: float, nx: int, ny: int, level: float) -> Confide
 def wilson_interval(
     positive: int, total: int, *, confidence_level: float = 0.95
 ) -> ConfidenceInterval:
-    """Wilson score interval of a proportion (Newcombe 1998, Stat Med 17:857, method 3).
-
-    Validated against ``statsmodels.stats.proportion.proportion_confint(method='wilson')``
-    and Newcombe's Table I values.
-    """
+    """Wilson score interval of a proportion (:func:`cohort.proportions.wilson_interval`)."""
     _check_level(confidence_level)
     _check_counts(positive, total)
-    method = "Wilson score (Newcombe 1998)"
-    if total == 0:
-        return ConfidenceInterval.not_estimable("no subjects", confidence_level, method)
-    z = _z(confidence_level)
-    p = positive / total
-    centre = (positive + z * z / 2.0) / (total + z * z)
-    half = z * math.sqrt(p * (1.0 - p) * total + z * z / 4.0) / (total + z * z)
-    return ConfidenceInterval(
-        max(0.0, centre - half), min(1.0, centre + half), confidence_level, method
-    )
+    return _wilson(positive, total, confidence_level)
 
 
 def _check_counts(positive: int, total: int) -> None:
