@@ -11,6 +11,7 @@ from collections.abc import Iterable
 import pandas as pd
 
 from .pipeline import Analysis
+from .regression import PB_WEIGHTED_MAX_N
 from .segments import segment_model
 from .units import PARAMETERS
 
@@ -67,23 +68,14 @@ def _threshold_sentences(thresholds: pd.DataFrame) -> list[str]:
     lines = []
     for finding, rows in thresholds.groupby("finding", sort=False):
         first = rows.iloc[0]
-        if first["kind"] == "remote":
-            rule = f"the subject's remote mean + {first['k']:g} SD ({first['remote_segments']})"
-        else:
-            parts = []
-            for _, row in rows.iterrows():
-                at = (
-                    "any field strength"
-                    if pd.isna(row["field_strength"])
-                    else f"{row['field_strength']:g} T"
-                )
-                derived = " (derived)" if bool(row["derived"]) else ""
-                parts.append(f"{row['threshold']:g} {row['unit']} at {at}{derived}")
-            rule = "; ".join(parts)
+        rules = [
+            f"{row['rule']}" + (" (derived)" if bool(row["derived"]) else "")
+            for _, row in rows.iterrows()
+        ]
         lines.append(
-            f"- **{finding}** ({first['label']}): {first['parameter']} {first['rule']} {rule}; "
-            f"a subject was positive with at least {int(first['min_segments'])} positive "
-            f"segment(s). Source: {first['source']}."
+            f"- **{finding}** ({first['label']}): {'; '.join(rules)}; a subject was positive "
+            f"with at least {int(first['min_segments'])} positive segment(s). "
+            f"Source: {'; '.join(dict.fromkeys(rows['source']))}."
         )
     return lines
 
@@ -149,7 +141,10 @@ def methods_markdown(analysis: Analysis) -> str:
         "[mcgraw1996]; association by Pearson's and Spearman's correlation and the "
         "repeated-measures correlation [bakdash2017, bland1995]. Passing-Bablok [passing1983] "
         f"and Deming regression (error-variance ratio {o.error_ratio:g}) [linnet1993] "
-        "estimated constant and proportional differences.",
+        "estimated constant and proportional differences; the Passing-Bablok cluster "
+        f"bootstrap weights the enumerated slopes per resample (rows of up to {PB_WEIGHTED_MAX_N} "
+        "pairs; larger rows report the rank-based interval, which ignores the clustering, "
+        "and say so in the table).",
         "",
         f"Unless stated otherwise, {level} confidence intervals are percentile intervals of a "
         f"subject-level cluster bootstrap [field2007] with B = {o.n_boot} resamples of subjects "
