@@ -36,8 +36,7 @@ def test_check_on_the_bundled_demo_exits_0_with_a_summary():
     # the demo's fast method lacks the apex in one subject in eight: 6 blanks per parameter
     assert (
         "missing (blank) by method and parameter: "
-        "quickmap ff 6, quickmap field 6, quickmap r2star 6"
-        in result.stdout
+        "quickmap ff 6, quickmap field 6, quickmap r2star 6" in result.stdout
     )
 
 
