@@ -378,7 +378,13 @@ def _row(
         "pb": lambda: passing_bablok(
             data.reference, data.test, max_pair_resamples=0, **fit_options
         ),
-        "deming": lambda: deming(data.reference, data.test, error_ratio=error_ratio, **fit_options),
+        "deming": lambda: deming(
+            data.reference,
+            data.test,
+            error_ratio=error_ratio,
+            resample_counts=counts if regression_n_boot == n_boot else None,
+            **fit_options,
+        ),
     }
     for prefix, fit in fits.items():
         if data.n_subjects < 2:

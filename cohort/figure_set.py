@@ -303,7 +303,7 @@ def _group_label(study: Study, group: object) -> str:
 
 
 def _groups_present(study: Study, frame: pd.DataFrame) -> list[str]:
-    present = set(frame["group"].astype(str))
+    present = set(frame["group"].astype(str).unique())
     order = [g for g in study.groups if g in present]
     return order + sorted(present - set(order))
 
@@ -656,7 +656,8 @@ def _median_figures(study: Study) -> Iterator[_Item]:
             n = sub.groupby("group")["subject"].nunique()
             row_names = {g: f"{_group_label(study, g)}\n(n = {int(n.get(g, 0))})" for g in groups}
             frame["row"] = frame["group"].astype(str).map(row_names)
-            methods = [m for m in study.methods if m in set(frame["method"])]
+            present = set(frame["method"].unique())
+            methods = [m for m in study.methods if m in present]
             where = "" if b0 is None else f" at {_tesla(b0)}"
             label = f"median {_label(parameter)}{where} ({_unit(parameter)})"
             grid = bullseye_grid(
@@ -826,7 +827,8 @@ def _group_figures(study: Study) -> Iterator[_Item]:
         means["group"] = means["group"].astype(str)
         strengths = _strengths(study, parameter, part)
         groups = _groups_present(study, means)
-        methods = [m for m in study.methods if m in set(means["method"])]
+        present = set(means["method"].unique())
+        methods = [m for m in study.methods if m in present]
         with style_context():
             fig, axes = _panel_axes(len(strengths), aspect=0.75)
             for k, (ax, b0) in enumerate(zip(axes, strengths, strict=True)):
@@ -912,7 +914,9 @@ def _paired_figures(study: Study) -> Iterator[_Item]:
             ]
             # Colours follow the order of the groups present in a panel: one legend for the
             # figure only when every panel holds every group.
-            shared_legend = len(panels) > 1 and all(set(p["group"]) == set(order) for p in panels)
+            shared_legend = len(panels) > 1 and all(
+                set(p["group"].unique()) == set(order) for p in panels
+            )
             with style_context():
                 fig, axes = _panel_axes(len(strengths), aspect=0.9)
                 for k, (ax, b0, sub) in enumerate(zip(axes, strengths, panels, strict=True)):
@@ -921,7 +925,7 @@ def _paired_figures(study: Study) -> Iterator[_Item]:
                         reference=study.reference,
                         test=method,
                         group="group",
-                        group_order=[g for g in order if g in set(sub["group"])],
+                        group_order=[g for g in order if g in set(sub["group"].unique())],
                         parameter=parameter,
                         ax=ax,
                     )
@@ -1052,8 +1056,9 @@ def _prevalence_figures(study: Study, tables: Mapping[str, pd.DataFrame]) -> Ite
             classified.groupby(["group", "method", "segment"])["_pos"].mean().mul(100.0)
         ).rename("value")
         frame = prevalence.reset_index()
-        methods = [m for m in study.methods if m in set(frame["method"])]
-        methods += sorted(set(frame["method"]) - set(methods))
+        present = set(frame["method"].unique())
+        methods = [m for m in study.methods if m in present]
+        methods += sorted(present - set(methods))
         if study.reference not in methods:
             yield SkippedFigure(
                 key, f"finding {finding!r} has no rows for the reference {study.reference!r}"
@@ -1154,7 +1159,7 @@ def _subject_figure(
         )
         yield SkippedFigure(key, why)
         return
-    known = set(study.subjects["subject"].astype(str))
+    known = set(study.subjects["subject"].astype(str).unique())
     unknown = [s for s in chosen if s not in known]
     if unknown:
         raise ValueError(f"subjects_to_show names subjects not in the study: {unknown!r}")
@@ -1168,7 +1173,8 @@ def _subject_figure(
     if part.empty:
         yield SkippedFigure(key, f"no {parameter} values for subjects {chosen!r}")
         return
-    methods = [m for m in study.methods if m in set(part["method"])]
+    present = set(part["method"].unique())
+    methods = [m for m in study.methods if m in present]
     strength = study.subjects.set_index(study.subjects["subject"].astype(str))["field_strength"]
     groups = study.subjects.set_index(study.subjects["subject"].astype(str))["group"]
     outlined: set[tuple[str, int]] = set()
@@ -1206,7 +1212,7 @@ def _subject_figure(
         frame["outlined"] = [
             (s, int(g)) in outlined for s, g in zip(frame["subject"], frame["segment"], strict=True)
         ]
-        present = set(frame["panel"])
+        present = set(frame["panel"].unique())
         order = [panel[(s, m)] for s in chunk for m in methods if panel[(s, m)] in present]
         wrap = min(len(methods) * max(1, 4 // len(methods)), len(order))
         grid = bullseye_grid(

@@ -13,6 +13,7 @@ import re
 from dataclasses import dataclass, field
 from pathlib import Path
 
+import numpy as np
 import pandas as pd
 
 from .problems import Problem, StudyError
@@ -109,7 +110,9 @@ def read_table(path: str | Path) -> RawTable:
             frame = sheets[first]
         else:
             frame = pd.read_parquet(path)
-            frame = frame.astype(object).where(frame.notna(), "").astype(str)
+            frame = frame.copy(deep=False)
+            for i in range(frame.shape[1]):
+                frame.isetitem(i, _as_text(frame.iloc[:, i]))
     except StudyError:
         raise
     except Exception as exc:  # any reader failure becomes a located problem
@@ -122,8 +125,29 @@ def read_table(path: str | Path) -> RawTable:
     frame = frame.fillna("").astype(str)
     if frame.empty:
         raise StudyError([Problem("file-empty", "file has no data rows", file=name)])
-    frame.insert(0, ROW, list(numbers))
+    rows = np.arange(2, len(frame) + 2) if isinstance(numbers, range) else list(numbers)
+    frame.insert(0, ROW, rows)
     return RawTable(frame, name, original, units, warnings)
+
+
+def _as_text(column: pd.Series) -> pd.Series:
+    """A column's cells as text: what ``str`` gives for each value, ``""`` for missing.
+
+    Text columns are kept as they are; numbers are converted once per distinct value (a
+    Parquet file of 100,000 subjects holds millions of cells but few distinct values).
+    """
+    if isinstance(column.dtype, pd.StringDtype):
+        return column.fillna("").astype(str)
+    kind = column.dtype.kind if isinstance(column.dtype, np.dtype) else ""
+    if kind in ("i", "u") or column.dtype == np.float64:
+        values = column.to_numpy()
+        codes, uniques = pd.factorize(values)  # missing (NaN): code -1
+        text = np.array([str(v) for v in uniques.tolist()] + [""], dtype=object)[codes]
+        if kind == "f":  # 0.0 and -0.0 are one value to factorize but two texts to str
+            zero = values == 0
+            text[zero] = np.where(np.signbit(values[zero]), "-0.0", "0.0")
+        return pd.Series(text, index=column.index, name=column.name).astype(str)
+    return column.astype(object).where(column.notna(), "").astype(str)
 
 
 def _read_delimited(path: Path, delimiter: str) -> pd.DataFrame:

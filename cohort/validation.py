@@ -141,8 +141,13 @@ def check_header_units(raw: RawTable, settings: StudySettings, log: ProblemLog) 
 
 def _trim_ids(log: ProblemLog, frame: pd.DataFrame, name: str, columns: tuple[str, ...]) -> None:
     for column in columns:
-        trimmed = frame[column].str.strip()
-        changed = trimmed != frame[column]
+        text = frame[column]
+        if not text.isna().any():  # decided once per distinct ID (millions of cells, few IDs)
+            distinct = pd.Series(text.unique(), dtype=text.dtype)
+            if distinct.str.strip().eq(distinct).all():
+                continue  # nothing to trim: the column stays as it is
+        trimmed = text.str.strip()
+        changed = trimmed != text
         if changed.any():
             first = int(frame.loc[changed, ROW].iloc[0])
             log.warn(
@@ -156,7 +161,24 @@ def _trim_ids(log: ProblemLog, frame: pd.DataFrame, name: str, columns: tuple[st
 
 
 def parse_numbers(text: pd.Series) -> tuple[pd.Series, pd.Series, pd.Series]:
-    """Parse text cells as floats: ``(values, blank, bad)``; blanks are missing, not errors."""
+    """Parse text cells as floats: ``(values, blank, bad)``; blanks are missing, not errors.
+
+    Each distinct text is parsed once (a column of millions of cells holds far fewer
+    distinct texts); cell by cell the result is the same.
+    """
+    if len(text) > 1000 and not text.isna().any():
+        codes, uniques = pd.factorize(text)
+        if len(uniques) < len(text) // 2:
+            distinct = pd.Series(uniques, dtype=text.dtype, name=text.name)
+            parsed = _parse_numbers(distinct)
+            return tuple(
+                pd.Series(part.to_numpy()[codes], index=text.index, name=text.name)
+                for part in parsed
+            )  # type: ignore[return-value]
+    return _parse_numbers(text)
+
+
+def _parse_numbers(text: pd.Series) -> tuple[pd.Series, pd.Series, pd.Series]:
     stripped = text.str.strip()
     blank = stripped.eq("") | stripped.str.lower().isin(["na", "nan", "n/a"])
     numbers = pd.to_numeric(stripped.where(~blank), errors="coerce").astype(float)
@@ -515,7 +537,7 @@ def check_across(
         log.add(
             "subject-without-info", f"{n_orphans - PER_CODE} more such subjects", file=values_name
         )
-    with_values = set(values["subject"])
+    with_values = set(values["subject"].unique())
     lonely = subjects[subjects["subject"].ne("") & ~subjects["subject"].isin(with_values)]
     _flag(
         log,

@@ -555,6 +555,9 @@ def test_inversion_count_and_pairs_equal_the_definition(n):
     r = rng.integers(0, 9, n).astype(np.int32)
     expected = {(p, q) for p in range(n) for q in range(p + 1, n) if r[p] > r[q]}
     assert regression._count_inversions(r) == len(expected)
+    assert regression._merge_inversions(r) == len(expected)  # the fallback without scipy's
+    # negative and widely spread values (the compiled count shifts and compresses them)
+    assert regression._count_inversions(r.astype(np.int64) * 10**6 - 5) == len(expected)
     p, q = regression._inversion_pairs(r, cap=10**9)
     assert len(p) == len(expected) and set(zip(p.tolist(), q.tolist(), strict=True)) == expected
     if len(expected) > 1:
@@ -583,6 +586,27 @@ def test_weighted_slope_bootstrap_equals_refitting_each_resample():
             draw = np.repeat(np.arange(n_subj), c)
             idx = order[_ragged_ranges(start[draw], size[draw])]
             np.testing.assert_allclose(got[k], _pb_point(x[idx], y[idx]), equal_nan=True)
+
+
+def test_weighted_slope_bootstrap_sparse_table_and_chunks_give_the_same_numbers(monkeypatch):
+    # the sparse subject-pair table (many subjects with few pairs) and any chunking of the
+    # resamples add the same whole numbers, so the draws must be identical to the dense path
+    from cohort.regression import _pb_weighted_draws
+
+    rng = np.random.default_rng(11)
+    n_subj = 60
+    codes = np.repeat(np.arange(n_subj), 3)
+    x = np.round(rng.normal(20, 4, codes.size), 1)
+    y = np.round(1.0 + 0.9 * x + rng.normal(0, 1.5, codes.size), 1)
+    counts = np.stack(
+        [np.bincount(rng.integers(0, n_subj, n_subj), minlength=n_subj) for _ in range(25)]
+    )
+    dense = _pb_weighted_draws(x, y, codes, counts)
+    monkeypatch.setattr(regression, "_PB_DENSE_TABLE_MAX", 0)
+    monkeypatch.setattr(regression, "_PB_WEIGHT_ELEMENTS", 3 * 1770)  # 3 resamples a chunk
+    sparse = _pb_weighted_draws(x, y, codes, counts)
+    np.testing.assert_array_equal(sparse, dense)
+    assert np.isfinite(dense).all()
 
 
 def test_passing_bablok_cluster_interval_above_the_weighted_limit_says_why():
