@@ -71,6 +71,10 @@ _PB_DENSE_TABLE_MAX = 20_000_000
 #: Resamples x subject pairs of slope weights that ``_pb_weighted_draws`` holds at once.
 _PB_WEIGHT_ELEMENTS = 10_000_000
 
+#: Resamples computed over all slope blocks to place the window of blocks that the others
+#: are computed in (``_pb_weighted_draws``, sparse tables).
+_PB_WINDOW_PILOT = 64
+
 #: Fewest resamples for which a 95 % percentile interval is still reported; below it the
 #: bootstrap is not run at all and the analytic interval is returned with a note.
 PB_BOOTSTRAP_MIN_B = 200
@@ -1140,37 +1144,51 @@ def _pb_weighted_draws(
     # Slopes of each subject pair per block: dense while small; sparse when many subjects
     # share few pairs (1,000 subjects x 4 segments: 8 million slopes of 500,000 subject
     # pairs, whose dense table would take 29 GiB). Every weight and sum here is a whole
-    # number below 2^53, so both forms and any chunking give the same floats exactly.
-    if n_blocks * n_pairs_q <= _PB_DENSE_TABLE_MAX:
+    # number below 2^53, so both forms, any chunking and any order of summation give the
+    # same floats exactly.
+    dense = n_blocks * n_pairs_q <= _PB_DENSE_TABLE_MAX
+    below_q = np.bincount(q[:n_below], minlength=n_pairs_q).astype(float)
+    out = np.full((counts.shape[0], 2), np.nan)
+    c_all = counts.astype(float)
+    step = max(1, _PB_WEIGHT_ELEMENTS // max(n_pairs_q, 1))
+
+    def pair_weights(rows) -> np.ndarray:
+        return c_all[rows][:, qs] * c_all[rows][:, qt]  # weight of one slope of each pair
+
+    def weighted_sum(per_pair: np.ndarray) -> np.ndarray:
+        """Sum over subject pairs (s, t) of per_pair c_s c_t, per resample."""
+        if n_clusters <= 3000:  # c^T P c with P the pair values as a k x k matrix (BLAS)
+            mat = np.zeros((n_clusters, n_clusters))
+            mat[qs, qt] = per_pair  # one entry per subject pair
+            return np.einsum("bi,bi->b", c_all @ mat, c_all)
+        out = np.empty(counts.shape[0])
+        for start in range(0, counts.shape[0], step):
+            rows = slice(start, start + step)
+            out[rows] = pair_weights(rows) @ per_pair
+        return out
+
+    if dense:
         table = (
             np.bincount(block_of * n_pairs_q + q, minlength=n_blocks * n_pairs_q)
             .reshape(n_blocks, n_pairs_q)
             .astype(float)
         )
-
-        def block_weights(wq: np.ndarray) -> np.ndarray:
-            return wq @ table.T
+        block_w = np.empty((counts.shape[0], n_blocks))
+        below = np.empty(counts.shape[0])
+        for start in range(0, counts.shape[0], step):
+            rows = slice(start, start + step)
+            wq = pair_weights(rows)
+            block_w[rows] = wq @ table.T
+            below[rows] = wq @ below_q
+        block_w = np.cumsum(block_w, axis=1)  # cumulative weight by block
+        total = block_w[:, -1]
+        full: dict[int, np.ndarray] = {}
     else:
         table = sparse.csr_array((np.ones(slope.size), (block_of, q)), shape=(n_blocks, n_pairs_q))
         table.sum_duplicates()
-
-        def block_weights(wq: np.ndarray) -> np.ndarray:
-            return (table @ np.ascontiguousarray(wq.T)).T
-
+        total = weighted_sum(np.bincount(q, minlength=n_pairs_q).astype(float))
+        below = weighted_sum(below_q)
     del block_of
-    below_q = np.bincount(q[:n_below], minlength=n_pairs_q).astype(float)
-    out = np.full((counts.shape[0], 2), np.nan)
-    c_all = counts.astype(float)
-    block_w = np.empty((counts.shape[0], n_blocks))
-    below = np.empty(counts.shape[0])
-    step = max(1, _PB_WEIGHT_ELEMENTS // max(n_pairs_q, 1))
-    for start in range(0, counts.shape[0], step):
-        rows = slice(start, start + step)
-        wq = c_all[rows][:, qs] * c_all[rows][:, qt]  # weight of one slope of each pair
-        block_w[rows] = block_weights(wq)
-        below[rows] = wq @ below_q
-    block_w = np.cumsum(block_w, axis=1)  # cumulative weight by block
-    total = block_w[:, -1]
     odd = total % 2 == 1
     r1 = np.where(odd, (total + 1) // 2, total // 2) + below
     r2 = np.where(odd, r1, r1 + 1)
@@ -1182,9 +1200,50 @@ def _pb_weighted_draws(
     ).min(axis=1)
     ok = (total > 0) & (r2 <= total) & (m >= 3) & (x_span > 0)
 
+    if not dense:
+        # The shifted medians of the resamples lie in a narrow band of the sorted slopes:
+        # cumulative block weights are formed only in a window of blocks around it (found
+        # from the first resamples, computed in full); a resample whose ranks fall outside
+        # the window is computed in full as well, so the result is the same.
+        def full_rows(rows: np.ndarray) -> np.ndarray:
+            weights = (table @ np.ascontiguousarray(pair_weights(rows).T)).T
+            return np.cumsum(weights, axis=1)
+
+        pilot = np.flatnonzero(ok)[:_PB_WINDOW_PILOT]
+        lo_block, hi_block = 0, n_blocks
+        if pilot.size:
+            cum = full_rows(pilot)
+            kb1 = [int(np.searchsorted(c, r, "left")) for c, r in zip(cum, r1[pilot], strict=True)]
+            kb2 = [int(np.searchsorted(c, r, "left")) for c, r in zip(cum, r2[pilot], strict=True)]
+            pad = max(4, max(kb2) - min(kb1))
+            lo_block, hi_block = max(0, min(kb1) - pad), min(n_blocks, max(kb2) + 1 + pad)
+        before_window = np.bincount(q[: lo_block * block], minlength=n_pairs_q).astype(float)
+        window_table = table[lo_block:hi_block]
+        if (hi_block - lo_block) * n_pairs_q <= _PB_DENSE_TABLE_MAX:
+            window_table = window_table.toarray()  # small enough for a BLAS product
+        window_w = np.empty((counts.shape[0], hi_block - lo_block))
+        window_start = weighted_sum(before_window)
+        for start in range(0, counts.shape[0], step):
+            rows = slice(start, start + step)
+            window_w[rows] = (window_table @ np.ascontiguousarray(pair_weights(rows).T)).T
+        window_w = window_start[:, None] + np.cumsum(window_w, axis=1)
+        inside = (r1 > window_start) & (r2 <= window_w[:, -1])
+        outside = np.flatnonzero(ok & ~inside)
+        full = {}
+        if outside.size:
+            full = dict(zip(outside.tolist(), full_rows(outside), strict=True))
+
+    def block_before(k: int, rank: float) -> tuple[int, float]:
+        """Block holding the slope of ``rank`` in resample k, and the weight before it."""
+        if dense or k in full:
+            row = block_w[k] if dense else full[k]
+            kb = int(np.searchsorted(row, rank, side="left"))
+            return kb, (row[kb - 1] if kb else 0.0)
+        local = int(np.searchsorted(window_w[k], rank, side="left"))
+        return lo_block + local, (window_w[k, local - 1] if local else window_start[k])
+
     def order_statistic(k: int, rank: float) -> float:
-        kb = int(np.searchsorted(block_w[k], rank, side="left"))
-        before = block_w[k, kb - 1] if kb else 0.0
+        kb, before = block_before(k, rank)
         part = slice(kb * block, min((kb + 1) * block, slope.size))
         cum = np.cumsum(c_all[k, lo_c[part]] * c_all[k, hi_c[part]])
         return float(slope[part][min(int(np.searchsorted(cum, rank - before)), cum.size - 1)])

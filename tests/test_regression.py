@@ -589,13 +589,14 @@ def test_weighted_slope_bootstrap_equals_refitting_each_resample():
 
 
 def test_weighted_slope_bootstrap_sparse_table_and_chunks_give_the_same_numbers(monkeypatch):
-    # the sparse subject-pair table (many subjects with few pairs) and any chunking of the
-    # resamples add the same whole numbers, so the draws must be identical to the dense path
+    # the sparse subject-pair table (many subjects with few pairs), its window of blocks and
+    # any chunking of the resamples add the same whole numbers, so the draws must be
+    # identical to the dense path
     from cohort.regression import _pb_weighted_draws
 
     rng = np.random.default_rng(11)
-    n_subj = 60
-    codes = np.repeat(np.arange(n_subj), 3)
+    n_subj = 150  # 600 points: 180,000 slopes in 176 blocks
+    codes = np.repeat(np.arange(n_subj), 4)
     x = np.round(rng.normal(20, 4, codes.size), 1)
     y = np.round(1.0 + 0.9 * x + rng.normal(0, 1.5, codes.size), 1)
     counts = np.stack(
@@ -603,9 +604,12 @@ def test_weighted_slope_bootstrap_sparse_table_and_chunks_give_the_same_numbers(
     )
     dense = _pb_weighted_draws(x, y, codes, counts)
     monkeypatch.setattr(regression, "_PB_DENSE_TABLE_MAX", 0)
-    monkeypatch.setattr(regression, "_PB_WEIGHT_ELEMENTS", 3 * 1770)  # 3 resamples a chunk
+    monkeypatch.setattr(regression, "_PB_WEIGHT_ELEMENTS", 3 * 11325)  # 3 resamples a chunk
     sparse = _pb_weighted_draws(x, y, codes, counts)
     np.testing.assert_array_equal(sparse, dense)
+    # a window of blocks placed from one resample leaves others outside: computed in full
+    monkeypatch.setattr(regression, "_PB_WINDOW_PILOT", 1)
+    np.testing.assert_array_equal(_pb_weighted_draws(x, y, codes, counts), dense)
     assert np.isfinite(dense).all()
 
 
