@@ -189,6 +189,8 @@ _ILLEGAL_CHARACTERS = re.compile(r"[\000-\010]|[\013-\014]|[\016-\037]")
 _ERROR_CODES = frozenset(("#NULL!", "#DIV/0!", "#VALUE!", "#REF!", "#NAME?", "#NUM!", "#N/A"))
 _ROWS_PER_BLOCK = 20_000
 _EMPTY = ' t="inlineStr" />'
+_TRUE = ' t="b"><v>1</v></c>'
+_FALSE = ' t="b"><v>0</v></c>'
 
 
 def _streamable_names(names: Sequence[str]) -> bool:
@@ -239,7 +241,7 @@ def _any_piece(value: object) -> str:
     if value is None or value is pd.NA or value is pd.NaT:
         return _EMPTY
     if isinstance(value, bool | np.bool_):  # pandas passes numpy booleans on as bool
-        return f' t="b"><v>{int(value)}</v></c>'
+        return _TRUE if value else _FALSE
     if isinstance(value, str):
         return _text_piece(value)
     if isinstance(value, float | np.floating):
@@ -249,18 +251,33 @@ def _any_piece(value: object) -> str:
     raise _NeedsOpenpyxl(type(value).__name__)
 
 
+class _Numbers:
+    """Cell pieces of a column of numbers only: just the ``%.16g`` texts (the worksheet's row
+    template holds the rest of each cell)."""
+
+    def __init__(self, texts: Callable[[int, int], list[str]]) -> None:
+        self.texts = texts
+
+    def __call__(self, a: int, b: int) -> list[str]:
+        return self.texts(a, b)
+
+
 def _column_pieces(series: pd.Series) -> Callable[[int, int], list[str]]:
-    """A function giving the cell pieces of rows ``start:stop`` of one column."""
+    """A function giving the cell pieces of rows ``start:stop`` of one column: the end of
+    each cell's XML after ``<c r="A1"``, or the bare numbers for a :class:`_Numbers` column."""
     dtype = series.dtype
     kind = dtype.kind if isinstance(dtype, np.dtype) else ""
-    if kind == "b":
-        values = series.to_numpy()
-        return lambda a, b: [f' t="b"><v>{int(v)}</v></c>' for v in values[a:b].tolist()]
+    if kind == "b" or isinstance(dtype, pd.BooleanDtype):
+        values = series.to_numpy(dtype=object, na_value=None)
+        lookup = {True: _TRUE, False: _FALSE, None: _EMPTY}
+        return lambda a, b: [lookup[v] for v in values[a:b].tolist()]
     if kind and kind in "iu":
         values = series.to_numpy()
-        return lambda a, b: [f' t="n"><v>{_G16(v)}</v></c>' for v in values[a:b].tolist()]
+        return _Numbers(lambda a, b: list(map(_G16, values[a:b].tolist())))
     if kind == "f":
         values = series.to_numpy()
+        if np.isfinite(values).all():
+            return _Numbers(lambda a, b: list(map(_G16, values[a:b].tolist())))
         finite = math.isfinite
         return lambda a, b: [
             f' t="n"><v>{_G16(v)}</v></c>' if finite(v) else _EMPTY for v in values[a:b].tolist()
@@ -278,7 +295,7 @@ def _column_pieces(series: pd.Series) -> Callable[[int, int], list[str]]:
         return pieces
     if (
         kind == "O"
-        or isinstance(dtype, pd.BooleanDtype | pd.CategoricalDtype)
+        or isinstance(dtype, pd.CategoricalDtype)
         or (isinstance(dtype, pd.api.extensions.ExtensionDtype) and dtype.kind in "iuf")
     ):
         values = series.astype(object).to_numpy()
@@ -389,16 +406,19 @@ def _write_worksheet(handle, table: pd.DataFrame) -> None:
             for letter, label in zip(letters, table.columns, strict=True)
         )
         handle.write(f'<row r="1">{header}</row>'.encode())
+    # one row: '<row r="{0}"><c r="A{0}"{1}<c r="B{0}"{2}...</row>', filled per row
+    cells = [
+        f'<c r="{letter}{{0}}" t="n"><v>{{{j + 1}}}</v></c>'
+        if isinstance(column, _Numbers)
+        else f'<c r="{letter}{{0}}"{{{j + 1}}}'
+        for j, (letter, column) in enumerate(zip(letters, columns, strict=True))
+    ]
+    row_template = '<row r="{0}">' + "".join(cells) + "</row>"
     for start in range(0, n_rows if n_columns else 0, _ROWS_PER_BLOCK):
         stop = min(start + _ROWS_PER_BLOCK, n_rows)
         numbers = [str(r) for r in range(start + 2, stop + 2)]
-        cells = []
-        for letter, pieces in zip(letters, columns, strict=True):
-            column = pieces(start, stop)
-            cells.append([f'<c r="{letter}{r}"{p}' for r, p in zip(numbers, column, strict=True)])
-        rows = zip(numbers, zip(*cells, strict=True), strict=True)
-        block = "".join(f'<row r="{r}">{"".join(row)}</row>' for r, row in rows)
-        handle.write(block.encode())
+        pieces = [column(start, stop) for column in columns]
+        handle.write("".join(map(row_template.format, numbers, *pieces)).encode())
     handle.write(_WORKSHEET_TAIL.encode())
 
 
