@@ -484,7 +484,9 @@ def _row(
         row["cluster_ci_method"] = bootstrap_method(n_boot, seed)
         draws = None
         if n_subjects >= 2 and n_boot > 0:
-            _, tables = subject_tables(ref, test, units["subject"].to_numpy())
+            # integer codes in sorted label order give the same table rows as the labels
+            codes, _ = pd.factorize(units["subject"], sort=True)
+            _, tables = subject_tables(ref, test, codes)
             draws = cluster_bootstrap_draws(tables, n_boot=n_boot, seed=seed)
         for name in _STATISTICS:
             point = row[name]

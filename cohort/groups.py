@@ -203,6 +203,8 @@ def _require(frame: pd.DataFrame, name: str, columns: Sequence[str]) -> pd.DataF
 
 
 def _order(present: Sequence[object], group_order: Sequence[str] | None, name: str) -> list[str]:
+    if isinstance(present, pd.Series | pd.Index | np.ndarray):
+        present = pd.unique(present)  # first appearances, before the Python-level pass
     seen = [str(g) for g in pd.unique(pd.Series(list(present), dtype=object))]
     if group_order is None:
         return seen
@@ -850,7 +852,7 @@ def subject_summaries(
     group_of = pd.Series(
         subjects["group"].astype(str).to_numpy(), index=subjects["subject"].astype(str)
     )
-    unknown = sorted(set(v["subject"]) - set(group_of.index))
+    unknown = sorted(set(v["subject"].unique()) - set(group_of.index))
     if unknown:
         raise ValueError(f"values name subjects absent from subjects: {unknown[:5]}")
     keys = ["subject", "method", "parameter"]
