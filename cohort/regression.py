@@ -24,7 +24,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 from numpy.typing import ArrayLike
-from scipy import interpolate, sparse, stats
+from scipy import interpolate, stats
 
 from cohort.bootstrap import ResampleCounts
 from cohort.results import ConfidenceInterval, warn_not_estimable
@@ -64,16 +64,13 @@ PB_BOOTSTRAP_PAIR_BUDGET = 200_000_000
 #: the limit).
 PB_WEIGHTED_MAX_N = 4000
 
-#: Largest dense table (blocks of sorted slopes x subject pairs, 8 bytes each) that
-#: ``_pb_weighted_draws`` builds; above it the table is sparse.
-_PB_DENSE_TABLE_MAX = 20_000_000
-
-#: Resamples x subject pairs of slope weights that ``_pb_weighted_draws`` holds at once.
-_PB_WEIGHT_ELEMENTS = 10_000_000
-
-#: Resamples computed over all slope blocks to place the window of blocks that the others
-#: are computed in (``_pb_weighted_draws``, sparse tables).
-_PB_WINDOW_PILOT = 64
+#: ``_pb_weighted_draws``: resamples located through coarse blocks of all slopes to place
+#: the window of slopes the others are located in; the least padding of that window either
+#: side; the number of coarse blocks.
+_PB_WINDOW_PILOT = 32
+_PB_WINDOW_MIN_PAD = 1024
+_PB_COARSE_BLOCKS = 16
+_PB_FINE_FACTOR = 400
 
 #: Fewest resamples for which a 95 % percentile interval is still reported; below it the
 #: bootstrap is not run at all and the analytic interval is returned with a note.
@@ -1115,9 +1112,11 @@ def _pb_weighted_draws(
     times, the slope between a point of s and a point of t occurs c_s c_t times (c_s^2
     within s; copies of one point are identical and ignored, as in the procedure), so the
     shifted median is a weighted order statistic and the intercept a weighted median of
-    y - b x. The order statistic is found blockwise: per block of sorted slopes, the number
-    of slopes of each subject pair is tabulated once, so a resample's block weights are one
-    matrix product. Equal to refitting the expanded resample (tests/test_regression.py),
+    y - b x. The weight of a block of sorted slopes is a quadratic form c^T M c (M the number
+    of its slopes per subject pair: one matrix product for all resamples); per-slope weights
+    c_s c_t are formed only in the block that holds a rank. Cost O(n^2 log n) once, then
+    about O(B k^2 sqrt(w) / k + B sqrt(w) k) for k subjects and a window of w slopes around
+    the resamples' medians. Equal to refitting the expanded resample (tests/test_regression.py),
     except that the sign of a vertical slope follows the original order of the pair.
     """
     i, j = np.triu_indices(x.size, 1)
@@ -1129,66 +1128,59 @@ def _pb_weighted_draws(
     keep = slope != -1.0
     slope, ci, cj = slope[keep], codes[i[keep]], codes[j[keep]]
     del i, j, dx, dy, keep
-    order = np.argsort(slope, kind="stable")
+    order = np.argsort(slope)  # the order among equal slopes does not change their value
     slope = slope[order]
     lo_c, hi_c = np.minimum(ci, cj)[order], np.maximum(ci, cj)[order]
     del ci, cj, order
     n_clusters = counts.shape[1]
-    pair_codes, q = np.unique(lo_c.astype(np.int64) * n_clusters + hi_c, return_inverse=True)
-    qs, qt = pair_codes // n_clusters, pair_codes % n_clusters
-    n_pairs_q = pair_codes.size
+    n_slopes = slope.size
     n_below = int(np.searchsorted(slope, -1.0, side="left"))
-    block = 1024
-    n_blocks = max(1, -(-slope.size // block))
-    block_of = np.arange(slope.size) // block
-    # Slopes of each subject pair per block: dense while small; sparse when many subjects
-    # share few pairs (1,000 subjects x 4 segments: 8 million slopes of 500,000 subject
-    # pairs, whose dense table would take 29 GiB). Every weight and sum here is a whole
-    # number below 2^53, so both forms, any chunking and any order of summation give the
-    # same floats exactly.
-    dense = n_blocks * n_pairs_q <= _PB_DENSE_TABLE_MAX
-    below_q = np.bincount(q[:n_below], minlength=n_pairs_q).astype(float)
-    out = np.full((counts.shape[0], 2), np.nan)
     c_all = counts.astype(float)
-    step = max(1, _PB_WEIGHT_ELEMENTS // max(n_pairs_q, 1))
+    n_boot = counts.shape[0]
+    # Every weight and sum here is a whole number below 2^53, so any grouping and order of
+    # summation gives the same floats exactly.
 
-    def pair_weights(rows) -> np.ndarray:
-        return c_all[rows][:, qs] * c_all[rows][:, qt]  # weight of one slope of each pair
+    def block_weight(rows, a: int, b: int) -> np.ndarray:
+        """Weight of the slopes [a, b) in the resamples ``rows``: c^T M c with M[s, t] the
+        number of those slopes between subjects s <= t (one matrix product, O(rows k^2))."""
+        cells = lo_c[a:b].astype(np.int64) * n_clusters + hi_c[a:b]
+        mat = np.bincount(cells, minlength=n_clusters * n_clusters).astype(float)
+        c = c_all[rows]
+        return np.einsum("bi,bi->b", c @ mat.reshape(n_clusters, n_clusters), c)
 
-    def weighted_sum(per_pair: np.ndarray) -> np.ndarray:
-        """Sum over subject pairs (s, t) of per_pair c_s c_t, per resample."""
-        if n_clusters <= 3000:  # c^T P c with P the pair values as a k x k matrix (BLAS)
-            mat = np.zeros((n_clusters, n_clusters))
-            mat[qs, qt] = per_pair  # one entry per subject pair
-            return np.einsum("bi,bi->b", c_all @ mat, c_all)
-        out = np.empty(counts.shape[0])
-        for start in range(0, counts.shape[0], step):
-            rows = slice(start, start + step)
-            out[rows] = pair_weights(rows) @ per_pair
-        return out
+    def edge_weights(rows, edges: Sequence[int]) -> np.ndarray:
+        """Weight of the slopes before each of the ``edges`` (rows x edges)."""
+        parts = [block_weight(rows, 0, edges[0])]
+        parts += [block_weight(rows, a, b) for a, b in itertools.pairwise(edges)]
+        return np.cumsum(np.stack(parts, axis=1), axis=1)
 
-    if dense:
-        table = (
-            np.bincount(block_of * n_pairs_q + q, minlength=n_blocks * n_pairs_q)
-            .reshape(n_blocks, n_pairs_q)
-            .astype(float)
-        )
-        block_w = np.empty((counts.shape[0], n_blocks))
-        below = np.empty(counts.shape[0])
-        for start in range(0, counts.shape[0], step):
-            rows = slice(start, start + step)
-            wq = pair_weights(rows)
-            block_w[rows] = wq @ table.T
-            below[rows] = wq @ below_q
-        block_w = np.cumsum(block_w, axis=1)  # cumulative weight by block
-        total = block_w[:, -1]
-        full: dict[int, np.ndarray] = {}
-    else:
-        table = sparse.csr_array((np.ones(slope.size), (block_of, q)), shape=(n_blocks, n_pairs_q))
-        table.sum_duplicates()
-        total = weighted_sum(np.bincount(q, minlength=n_pairs_q).astype(float))
-        below = weighted_sum(below_q)
-    del block_of
+    def position(k: int, rank: float, edges: Sequence[int], before: np.ndarray) -> int:
+        """Position of the slope of ``rank`` in resample k, given the weights ``before`` the
+        ``edges``, or -1 when it is not between the first and the last edge."""
+        j = int(np.searchsorted(before, rank, side="left")) - 1
+        if j < 0 or j >= len(edges) - 1:
+            return -1
+        a, b = edges[j], edges[j + 1]
+        cum = before[j] + np.cumsum(c_all[k, lo_c[a:b]] * c_all[k, hi_c[a:b]])
+        return a + int(np.searchsorted(cum, rank, side="left"))
+
+    def locate(rows: np.ndarray, edges: Sequence[int]) -> np.ndarray:
+        """Positions of the slopes of ranks r1 and r2 in ``rows`` (rows x 2, -1 outside)."""
+        before = edge_weights(rows, edges)
+        return np.array(
+            [
+                [position(k, r, edges, w) for r in (r1[k], r2[k])]
+                for k, w in zip(rows.tolist(), before, strict=True)
+            ],
+            dtype=np.int64,
+        ).reshape(-1, 2)
+
+    def coarse(rows: np.ndarray) -> np.ndarray:
+        edges = np.unique(np.linspace(0, n_slopes, _PB_COARSE_BLOCKS + 1).astype(int))
+        return locate(rows, edges.tolist())
+
+    total = block_weight(slice(None), 0, n_slopes)
+    below = block_weight(slice(None), 0, n_below)
     odd = total % 2 == 1
     r1 = np.where(odd, (total + 1) // 2, total // 2) + below
     r2 = np.where(odd, r1, r1 + 1)
@@ -1200,61 +1192,35 @@ def _pb_weighted_draws(
     ).min(axis=1)
     ok = (total > 0) & (r2 <= total) & (m >= 3) & (x_span > 0)
 
-    if not dense:
-        # The shifted medians of the resamples lie in a narrow band of the sorted slopes:
-        # cumulative block weights are formed only in a window of blocks around it (found
-        # from the first resamples, computed in full); a resample whose ranks fall outside
-        # the window is computed in full as well, so the result is the same.
-        def full_rows(rows: np.ndarray) -> np.ndarray:
-            weights = (table @ np.ascontiguousarray(pair_weights(rows).T)).T
-            return np.cumsum(weights, axis=1)
-
-        pilot = np.flatnonzero(ok)[:_PB_WINDOW_PILOT]
-        lo_block, hi_block = 0, n_blocks
-        if pilot.size:
-            cum = full_rows(pilot)
-            kb1 = [int(np.searchsorted(c, r, "left")) for c, r in zip(cum, r1[pilot], strict=True)]
-            kb2 = [int(np.searchsorted(c, r, "left")) for c, r in zip(cum, r2[pilot], strict=True)]
-            pad = max(4, max(kb2) - min(kb1))
-            lo_block, hi_block = max(0, min(kb1) - pad), min(n_blocks, max(kb2) + 1 + pad)
-        before_window = np.bincount(q[: lo_block * block], minlength=n_pairs_q).astype(float)
-        window_table = table[lo_block:hi_block]
-        if (hi_block - lo_block) * n_pairs_q <= _PB_DENSE_TABLE_MAX:
-            window_table = window_table.toarray()  # small enough for a BLAS product
-        window_w = np.empty((counts.shape[0], hi_block - lo_block))
-        window_start = weighted_sum(before_window)
-        for start in range(0, counts.shape[0], step):
-            rows = slice(start, start + step)
-            window_w[rows] = (window_table @ np.ascontiguousarray(pair_weights(rows).T)).T
-        window_w = window_start[:, None] + np.cumsum(window_w, axis=1)
-        inside = (r1 > window_start) & (r2 <= window_w[:, -1])
-        outside = np.flatnonzero(ok & ~inside)
-        full = {}
+    # The shifted medians of the resamples lie in a narrow band of the sorted slopes, found
+    # from the first resamples (located through coarse blocks of all slopes). The others are
+    # located through fine blocks of that window: block weights are quadratic forms, so only
+    # the slopes of the one block holding a rank are weighted one by one. Fine blocks balance
+    # B k^2 per block against B x block size (sqrt(40 w) / k blocks for a window of w). A
+    # resample whose ranks fall outside the window is located through coarse blocks, so the
+    # result does not depend on the window.
+    usable = np.flatnonzero(ok)
+    found = np.full((n_boot, 2), -1, dtype=np.int64)
+    pilot, rest = usable[:_PB_WINDOW_PILOT], usable[_PB_WINDOW_PILOT:]
+    if pilot.size:
+        found[pilot] = coarse(pilot)
+    if rest.size:
+        first, last = int(found[pilot, 0].min()), int(found[pilot, 1].max())
+        pad = max(_PB_WINDOW_MIN_PAD, (last - first) // 2)
+        lo, hi = max(0, first - pad), min(n_slopes, last + 1 + pad)
+        n_fine = max(1, min(256, round(math.sqrt(_PB_FINE_FACTOR * (hi - lo)) / n_clusters)))
+        edges = np.unique(np.linspace(lo, hi, n_fine + 1).astype(int)).tolist()
+        found[rest] = locate(rest, edges)
+        outside = rest[(found[rest] < 0).any(axis=1)]
         if outside.size:
-            full = dict(zip(outside.tolist(), full_rows(outside), strict=True))
-
-    def block_before(k: int, rank: float) -> tuple[int, float]:
-        """Block holding the slope of ``rank`` in resample k, and the weight before it."""
-        if dense or k in full:
-            row = block_w[k] if dense else full[k]
-            kb = int(np.searchsorted(row, rank, side="left"))
-            return kb, (row[kb - 1] if kb else 0.0)
-        local = int(np.searchsorted(window_w[k], rank, side="left"))
-        return lo_block + local, (window_w[k, local - 1] if local else window_start[k])
-
-    def order_statistic(k: int, rank: float) -> float:
-        kb, before = block_before(k, rank)
-        part = slice(kb * block, min((kb + 1) * block, slope.size))
-        cum = np.cumsum(c_all[k, lo_c[part]] * c_all[k, hi_c[part]])
-        return float(slope[part][min(int(np.searchsorted(cum, rank - before)), cum.size - 1)])
-
-    b = np.full(counts.shape[0], np.nan)
-    for k in np.flatnonzero(ok):
-        b[k] = 0.5 * (order_statistic(k, r1[k]) + order_statistic(k, r2[k]))
+            found[outside] = coarse(outside)
+    b = np.full(n_boot, np.nan)
+    b[usable] = 0.5 * (slope[found[usable, 0]] + slope[found[usable, 1]])
     ok &= np.isfinite(b)
+    out = np.full((n_boot, 2), np.nan)
     chunk = max(1, 2_000_000 // max(x.size, 1))
-    for start in range(0, counts.shape[0], chunk):
-        rows = slice(start, start + chunk)
+    for begin in range(0, n_boot, chunk):
+        rows = slice(begin, begin + chunk)
         v = y[None, :] - np.where(ok[rows], b[rows], 0.0)[:, None] * x[None, :]
         vo = np.argsort(v, axis=1, kind="stable")
         vs = np.take_along_axis(v, vo, axis=1)

@@ -588,29 +588,42 @@ def test_weighted_slope_bootstrap_equals_refitting_each_resample():
             np.testing.assert_allclose(got[k], _pb_point(x[idx], y[idx]), equal_nan=True)
 
 
-def test_weighted_slope_bootstrap_sparse_table_and_chunks_give_the_same_numbers(monkeypatch):
-    # the sparse subject-pair table (many subjects with few pairs), its window of blocks and
-    # any chunking of the resamples add the same whole numbers, so the draws must be
-    # identical to the dense path
+def test_weighted_slope_bootstrap_blocks_and_window_give_the_same_numbers(monkeypatch):
+    # the window of slopes placed from the first resamples, its blocks, and the resamples
+    # located through coarse blocks when they fall outside it add the same whole numbers, so
+    # the draws must be identical to locating every resample through coarse blocks
     from cohort.regression import _pb_weighted_draws
 
     rng = np.random.default_rng(11)
-    n_subj = 150  # 600 points: 180,000 slopes in 176 blocks
+    n_subj = 150  # 600 points: 179,700 slopes
     codes = np.repeat(np.arange(n_subj), 4)
     x = np.round(rng.normal(20, 4, codes.size), 1)
     y = np.round(1.0 + 0.9 * x + rng.normal(0, 1.5, codes.size), 1)
     counts = np.stack(
         [np.bincount(rng.integers(0, n_subj, n_subj), minlength=n_subj) for _ in range(25)]
     )
-    dense = _pb_weighted_draws(x, y, codes, counts)
-    monkeypatch.setattr(regression, "_PB_DENSE_TABLE_MAX", 0)
-    monkeypatch.setattr(regression, "_PB_WEIGHT_ELEMENTS", 3 * 11325)  # 3 resamples a chunk
-    sparse = _pb_weighted_draws(x, y, codes, counts)
-    np.testing.assert_array_equal(sparse, dense)
-    # a window of blocks placed from one resample leaves others outside: computed in full
+    monkeypatch.setattr(regression, "_PB_WINDOW_PILOT", 25)  # every resample, coarse blocks
+    coarse = _pb_weighted_draws(x, y, codes, counts)
+    monkeypatch.setattr(regression, "_PB_COARSE_BLOCKS", 1)  # one block: slope by slope
+    np.testing.assert_array_equal(_pb_weighted_draws(x, y, codes, counts), coarse)
+    monkeypatch.setattr(regression, "_PB_COARSE_BLOCKS", 16)
+    monkeypatch.setattr(regression, "_PB_WINDOW_PILOT", 4)
+    np.testing.assert_array_equal(_pb_weighted_draws(x, y, codes, counts), coarse)
+    # a window placed from one resample with little padding leaves others outside it
     monkeypatch.setattr(regression, "_PB_WINDOW_PILOT", 1)
-    np.testing.assert_array_equal(_pb_weighted_draws(x, y, codes, counts), dense)
-    assert np.isfinite(dense).all()
+    monkeypatch.setattr(regression, "_PB_WINDOW_MIN_PAD", 1)
+    coarse_calls = []
+    linspace = np.linspace
+
+    def spy(start, stop, num, *args, **kwargs):
+        if start == 0 and num == regression._PB_COARSE_BLOCKS + 1:
+            coarse_calls.append(stop)
+        return linspace(start, stop, num, *args, **kwargs)
+
+    monkeypatch.setattr(np, "linspace", spy)
+    np.testing.assert_array_equal(_pb_weighted_draws(x, y, codes, counts), coarse)
+    assert len(coarse_calls) == 2  # the pilot, then the resamples outside the window
+    assert np.isfinite(coarse).all()
 
 
 def test_passing_bablok_cluster_interval_above_the_weighted_limit_says_why():
