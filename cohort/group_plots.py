@@ -18,6 +18,7 @@ import matplotlib.pyplot as plt
 import numpy as np
 import pandas as pd
 from matplotlib.axes import Axes
+from matplotlib.collections import LineCollection
 from matplotlib.colors import to_rgb
 from matplotlib.legend_handler import HandlerTuple
 from matplotlib.lines import Line2D
@@ -28,6 +29,11 @@ from cohort.style import LINE_COLOUR, figure_size, group_styles, style_context
 from cohort.units import PARAMETERS
 
 DISTRIBUTION_KINDS = ("box", "violin")
+
+PAIRED_LINES_MAX = 500
+"""Up to this many subjects :func:`paired_lines_plot` draws one line artist per subject;
+above, one rasterised line collection per group (thousands of artists take seconds each to
+draw and make SVG files of many megabytes)."""
 
 
 def _check_table(summary: Any, columns: Sequence[str | None]) -> None:
@@ -283,7 +289,10 @@ def paired_lines_plot(
     Returns
     -------
     matplotlib.axes.Axes
-        Each line has ``gid`` ``"subject-<id>"``.
+        Each line has ``gid`` ``"subject-<id>"``; above :data:`PAIRED_LINES_MAX` subjects the
+        lines of a group are one rasterised ``LineCollection`` with ``gid``
+        ``"subjects-<group>"`` (segments in subject order) and its end points one scatter
+        with ``gid`` ``"ends-<group>"``.
     """
     _check_table(summary, [subject, method, value, group])
     if reference == test:
@@ -327,28 +336,27 @@ def paired_lines_plot(
         levels = [None]
     styles = group_styles(levels)
     n = len(subjects_in_order)
-    alpha = 0.8 if n <= 50 else max(0.15, 0.8 * math.sqrt(50 / n))
+    alpha = 0.8 if n <= 50 else max(0.05, 0.8 * math.sqrt(50 / n))
 
     context = style_context() if ax is None else contextlib.nullcontext()
     with context:
         if ax is None:
             _, ax = plt.subplots(figsize=figure_size("single", aspect=0.9))
-        for s in subjects_in_order:
-            colour, marker = styles[subject_group[s]]
-            line_kwargs: dict[str, object] = {
-                "linewidth": 0.8,
-                "markersize": 3.5,
-                "alpha": alpha,
-            }
-            line_kwargs.update(kwargs)
-            ax.plot(
-                [0.0, 1.0],
-                [wide.at[s, reference], wide.at[s, test]],
-                color=colour,
-                marker=marker,
-                gid=f"subject-{s}",
-                **line_kwargs,
-            )
+        line_kwargs: dict[str, Any] = {"linewidth": 0.8, "markersize": 3.5, "alpha": alpha}
+        line_kwargs.update(kwargs)
+        if n <= PAIRED_LINES_MAX:
+            for s in subjects_in_order:
+                colour, marker = styles[subject_group[s]]
+                ax.plot(
+                    [0.0, 1.0],
+                    [wide.at[s, reference], wide.at[s, test]],
+                    color=colour,
+                    marker=marker,
+                    gid=f"subject-{s}",
+                    **line_kwargs,
+                )
+        else:
+            _line_collections(ax, wide, reference, test, subject_group, levels, styles, line_kwargs)
         ax.set_xticks([0.0, 1.0], [str(reference), str(test)])
         ax.set_xlim(-0.25, 1.25)
         ax.set_ylabel(label)
@@ -376,3 +384,48 @@ def paired_lines_plot(
                 frameon=False,
             )
     return ax
+
+
+def _line_collections(
+    ax: Axes,
+    wide: pd.DataFrame,
+    reference: object,
+    test: object,
+    subject_group: pd.Series,
+    levels: Sequence[object],
+    styles: dict,
+    line_kwargs: dict[str, Any],
+) -> None:
+    """One line collection and one scatter of end points per group (many subjects)."""
+    options = dict(line_kwargs)
+    width = float(options.pop("linewidth", 0.8))
+    size = float(options.pop("markersize", 3.5))
+    alpha = options.pop("alpha", None)
+    for level in levels:
+        members = subject_group.index[
+            subject_group.isna() if level is None else subject_group == level
+        ]
+        if not len(members):
+            continue
+        ref = wide.loc[members, reference].to_numpy(dtype=float)
+        tst = wide.loc[members, test].to_numpy(dtype=float)
+        colour, marker = styles[level]
+        segments = np.stack([np.zeros_like(ref), ref, np.ones_like(ref), tst], axis=1)
+        lines = LineCollection(
+            segments.reshape(-1, 2, 2), colors=[colour], linewidths=width, alpha=alpha, **options
+        )
+        lines.set_gid(f"subjects-{level}")
+        lines.set_rasterized(True)
+        ax.add_collection(lines, autolim=True)
+        ends = ax.scatter(
+            np.repeat([0.0, 1.0], ref.size),
+            np.concatenate([ref, tst]),
+            s=size**2,
+            color=colour,
+            marker=marker,
+            alpha=alpha,
+            linewidths=0,
+            rasterized=True,
+        )
+        ends.set_gid(f"ends-{level}")
+    ax.autoscale_view()

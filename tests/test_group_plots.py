@@ -154,6 +154,46 @@ def test_paired_lines_one_per_subject_from_reference_to_test():
     assert legend == ["control (n = 6)", "acute (n = 8)", "chronic (n = 5)"]
 
 
+def test_paired_lines_many_subjects_one_collection_per_group():
+    # above PAIRED_LINES_MAX subjects the lines of a group are one collection, segments in
+    # subject order from (0, reference) to (1, test), with the group's colour and marker
+    from cohort.group_plots import PAIRED_LINES_MAX
+
+    rng = np.random.default_rng(4)
+    n = PAIRED_LINES_MAX + 100
+    ids = [f"s{i:04d}" for i in range(n)]
+    groups = np.where(np.arange(n) % 3 == 0, "acute", "control")
+    ref = rng.normal(30, 5, n)
+    table = pd.concat(
+        [
+            pd.DataFrame({"subject": ids, "method": "ref", "value": ref, "group": groups}),
+            pd.DataFrame({"subject": ids, "method": "fast", "value": ref + 1, "group": groups}),
+        ]
+    )
+    ax = paired_lines_plot(table, reference="ref", test="fast")
+    assert not [a for a in ax.get_lines() if (a.get_gid() or "").startswith("subject-")]
+    colours = {}
+    for group in ("acute", "control"):
+        lines = _by_gid(ax, f"subjects-{group}")
+        members = np.flatnonzero(groups == group)
+        segments = np.array(lines.get_segments())
+        assert segments.shape == (members.size, 2, 2)
+        np.testing.assert_allclose(segments[:, 0, 0], 0.0)
+        np.testing.assert_allclose(segments[:, 1, 0], 1.0)
+        np.testing.assert_allclose(segments[:, 0, 1], ref[members])
+        np.testing.assert_allclose(segments[:, 1, 1], ref[members] + 1)
+        assert lines.get_rasterized()
+        ends = _by_gid(ax, f"ends-{group}")
+        assert len(ends.get_offsets()) == 2 * members.size
+        colours[group] = tuple(np.round(lines.get_edgecolor()[0][:3], 6))
+    assert colours["acute"] != colours["control"]
+    legend = [t.get_text() for t in ax.get_legend().get_texts()]
+    assert legend == [
+        f"acute (n = {(groups == 'acute').sum()})",
+        f"control (n = {(groups == 'control').sum()})",
+    ]
+
+
 def test_paired_lines_input_errors():
     table = _cohort()
     with pytest.raises(ValueError, match=r"lack one, e.g. \['co00'\]"):
