@@ -11,6 +11,7 @@ row's pairs. Column names and meanings: :data:`COLUMN_DESCRIPTIONS`.
 
 from __future__ import annotations
 
+import functools
 import math
 import warnings
 from collections.abc import Iterable, Mapping, Sequence
@@ -39,10 +40,18 @@ from .bootstrap import (
 )
 from .concordance import CCC_ANALYSIS, ICC_ANALYSIS
 from .correlation import PEARSON_ANALYSIS, RM_CORR_ANALYSIS, SPEARMAN_ANALYSIS
+from .parallel import ordered_map
 from .regression import deming, passing_bablok
 from .results import NotEstimableWarning
 from .segments import RINGS, TERRITORIES
 from .units import PARAMETERS
+
+PB_TABLE_MAX_PAIRS = 500_000
+"""Rows of more pairs get no Passing-Bablok fit unless ``pb_max_pairs`` is raised: its exact
+slope selection costs about 15 s per row at 1.7 million pairs on a 2-core machine
+(benchmarks/scale.py), and its rank-based interval, which then ignores the clustering, is
+narrow to the point of misleading; Deming and the limits of agreement keep their cluster
+bootstrap at any size."""
 
 STRATA: tuple[str, ...] = ("all", "group", "ring", "territory")
 """Strata the table knows: the whole cohort and the levels of each contract column."""
@@ -334,6 +343,7 @@ def _row(
     error_ratio: float,
     regression_limits: bool,
     regression_n_boot: int,
+    pb_max_pairs: int,
     counts: ResampleCounts,
 ) -> tuple[dict[str, object], list[str]]:
     """The statistics cells of one row and its remarks (not-estimable reasons first)."""
@@ -386,6 +396,13 @@ def _row(
             **fit_options,
         ),
     }
+    if data.n_pairs > pb_max_pairs and data.n_subjects >= 2:
+        del fits["pb"]
+        cells.update(_nan_cells(_regression_columns("pb", "")))
+        remarks.append(
+            f"Passing-Bablok not computed: {data.n_pairs:,} pairs exceed pb_max_pairs = "
+            f"{pb_max_pairs:,} (raise it to compute the fit, about 10 s per million pairs)"
+        )
     for prefix, fit in fits.items():
         if data.n_subjects < 2:
             cells.update(_nan_cells(_regression_columns(prefix, "")))
@@ -424,6 +441,8 @@ def agreement_table(
     extra_strata: Mapping[str, object] | None = None,
     regression_limits: bool = False,
     regression_n_boot: int | None = None,
+    pb_max_pairs: int = PB_TABLE_MAX_PAIRS,
+    workers: int = 1,
 ) -> pd.DataFrame:
     """Agreement of every test method with the reference, per parameter and stratum.
 
@@ -453,6 +472,12 @@ def agreement_table(
         Passing-Bablok bootstrap refits the estimator per resample, about 0.5 s per resample
         at 170,000 pairs (cohort.regression caps it by a budget and says so); 0 gives their
         analytic intervals, which treat pairs as independent (their note says so).
+    pb_max_pairs
+        Rows with more pairs get no Passing-Bablok fit; their note says so
+        (:data:`PB_TABLE_MAX_PAIRS`).
+    workers
+        Processes computing rows (:func:`cohort.parallel.ordered_map`; 0 = one per core):
+        the table is the same for any number.
 
     Returns
     -------
@@ -479,6 +504,12 @@ def agreement_table(
         raise ValueError(
             f"regression_n_boot must be a non-negative integer or None, got {regression_n_boot!r}"
         )
+    if (
+        isinstance(pb_max_pairs, bool)
+        or not isinstance(pb_max_pairs, int | np.integer)
+        or pb_max_pairs < 0
+    ):
+        raise ValueError(f"pb_max_pairs must be a non-negative integer, got {pb_max_pairs!r}")
     _check(paired, strata, extra_strata, ratio_parameters, error_ratio)
     options = {
         "confidence_level": confidence_level,
@@ -487,8 +518,7 @@ def agreement_table(
         "error_ratio": error_ratio,
         "regression_limits": regression_limits,
         "regression_n_boot": regression_n_boot,
-        # Rows with as many subjects share their resample counts (same seed, same draws).
-        "counts": ResampleCounts(n_boot, seed),
+        "pb_max_pairs": pb_max_pairs,
     }
     masks = _strata_masks(paired, strata, extra_strata)
     # Codes in sorted label order, as the statistics' own functions number subjects.
@@ -498,7 +528,7 @@ def agreement_table(
     reference_all = paired["reference"].astype(str).to_numpy()
     keys = paired[["parameter", "method"]].astype(str)
     combos = keys.groupby(["parameter", "method"], sort=True).indices
-    rows = []
+    jobs = []
     for parameter in _ordered({p for p, _ in combos}, tuple(PARAMETERS)):
         for method in sorted(m for p, m in combos if p == parameter):
             positions = combos[(parameter, method)]
@@ -512,11 +542,42 @@ def agreement_table(
                 data = _stratum_values(
                     x_all[selected], y_all[selected], subject_codes[selected], len(subjects)
                 )
-                identity["stratum"] = stratum
-                rows.append(
-                    _table_row(identity, data, ratio=parameter in ratio_parameters, **options)
-                )
+                jobs.append(({**identity, "stratum": stratum}, data, parameter in ratio_parameters))
+    try:
+        done = ordered_map(functools.partial(_row_job, options=options), jobs, workers)
+    finally:
+        _PROCESS_COUNTS.clear()
+    rows = []
+    for row, caught in done:
+        for category, message in caught:
+            warnings.warn(message, category, stacklevel=2)
+        rows.append(row)
     return pd.DataFrame(rows, columns=list(AGREEMENT_COLUMNS))
+
+
+_PROCESS_COUNTS: dict[tuple[int, int | None], ResampleCounts] = {}
+
+
+def _process_counts(n_boot: int, seed: int | None) -> ResampleCounts:
+    """Resample counts shared by the rows computed in this process: rows with as many
+    subjects share their counts (same seed, same draws), whichever process computes them."""
+    key = (n_boot, seed)
+    if key not in _PROCESS_COUNTS:
+        _PROCESS_COUNTS.clear()
+        _PROCESS_COUNTS[key] = ResampleCounts(n_boot, seed)
+    return _PROCESS_COUNTS[key]
+
+
+def _row_job(
+    job: tuple[dict[str, str], PairedValues, bool], options: Mapping[str, object]
+) -> tuple[dict[str, object], list[tuple[type[Warning], str]]]:
+    """One row and the warnings it raised (category, message), for the parent to repeat."""
+    identity, data, ratio = job
+    counts = _process_counts(options["n_boot"], options["seed"])
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        row = _table_row(identity, data, ratio=ratio, counts=counts, **options)
+    return row, [(w.category, str(w.message)) for w in caught]
 
 
 def _stratum_values(x, y, codes: np.ndarray, n_labels: int) -> PairedValues:

@@ -99,6 +99,7 @@ def cmd_run(args: argparse.Namespace) -> int:
         seed=args.seed,
         n_boot=args.bootstrap,
         figures=False if args.no_figures else None,
+        workers=args.workers,
     )
 
     def progress(message: str) -> None:
@@ -166,6 +167,14 @@ def build_parser() -> argparse.ArgumentParser:
         help="bootstrap resamples (default 2000)",
     )
     run.add_argument("--no-figures", action="store_true", help="tables, methods and manifest only")
+    run.add_argument(
+        "--workers",
+        type=int,
+        default=None,
+        metavar="N",
+        help="processes for the agreement statistics and figures (default: one per core, "
+        "at most 4; results are the same for any number)",
+    )
     run.add_argument("--force", action="store_true", help="replace a non-empty output folder")
     run.add_argument("--quiet", action="store_true", help="no progress messages")
     run.add_argument(

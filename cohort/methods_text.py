@@ -144,7 +144,13 @@ def methods_markdown(analysis: Analysis) -> str:
         "estimated constant and proportional differences; the Passing-Bablok cluster "
         f"bootstrap weights the enumerated slopes per resample (rows of up to {PB_WEIGHTED_MAX_N} "
         "pairs; larger rows report the rank-based interval, which ignores the clustering, "
-        "and say so in the table).",
+        "and say so in the table)"
+        + (
+            f"; rows of more than {o.pb_max_pairs:,} pairs have no Passing-Bablok fit, for "
+            "its cost (their note says so)."
+            if (analysis.tables["agreement"]["n_pairs"] > o.pb_max_pairs).any()
+            else "."
+        ),
         "",
         f"Unless stated otherwise, {level} confidence intervals are percentile intervals of a "
         f"subject-level cluster bootstrap [field2007] with B = {o.n_boot} resamples of subjects "

@@ -18,8 +18,10 @@ Options come from the ``[analysis]`` table of the study file (all optional)::
     ccc_min = 0.9              # deceptive-agreement warning: CCC at or above ...
     sensitivity_max = 0.8      # ... while sensitivity for a finding is below this
     bias_ratio = 2.0           # ... or bias in positive segments this many times that elsewhere
+    pb_max_pairs = 500000      # rows with more pairs get no Passing-Bablok fit (note says so)
+    workers = 0                # processes (0 = one per core, at most 4); results unchanged
 
-Command-line options (``--seed``, ``--bootstrap``) override the study file.
+Command-line options (``--seed``, ``--bootstrap``, ``--workers``) override the study file.
 """
 
 from __future__ import annotations
@@ -32,7 +34,7 @@ from typing import Any
 
 import pandas as pd
 
-from .agreement_table import agreement_table
+from .agreement_table import PB_TABLE_MAX_PAIRS, agreement_table
 from .bootstrap import DEFAULT_N_BOOT, DEFAULT_SEED
 from .detection import deceptive_agreement, finding_strata, findings_agreement, missed_findings
 from .findings import FindingsResult, evaluate_findings
@@ -62,7 +64,11 @@ class RunOptions:
     ccc_min: float = 0.9
     sensitivity_max: float = 0.8
     bias_ratio: float = 2.0
+    pb_max_pairs: int = PB_TABLE_MAX_PAIRS
     figures: bool = True
+    workers: int = 0
+    """Processes for the agreement rows and the figures (0 = one per core, at most 4); the
+    results are the same for any number (:mod:`cohort.parallel`)."""
 
     def to_dict(self) -> dict[str, Any]:
         return {k: list(v) if isinstance(v, tuple) else v for k, v in asdict(self).items()}
@@ -120,6 +126,17 @@ def options_from_study(study: Study, **overrides: Any) -> RunOptions:
                     "[analysis] correction is not valid",
                     value=options.correction,
                     expected="'holm' or 'fdr_bh'",
+                )
+            ]
+        )
+    if options.workers < 0:
+        raise StudyError(
+            [
+                Problem(
+                    "study-option",
+                    "[analysis] workers is not valid",
+                    value=str(options.workers),
+                    expected="0 (one per core) or a positive number of processes",
                 )
             ]
         )
@@ -191,6 +208,8 @@ def analyse(
             error_ratio=options.error_ratio,
             extra_strata=strata_masks,
             regression_limits=options.regression_limits,
+            pb_max_pairs=options.pb_max_pairs,
+            workers=options.workers,
         ),
     )
     detection = step(

@@ -19,6 +19,7 @@ from cohort.agreement import (
 from cohort.agreement_table import AGREEMENT_COLUMNS, COLUMN_DESCRIPTIONS, agreement_table
 from cohort.concordance import concordance_correlation, icc_agreement
 from cohort.correlation import pearson, repeated_measures_correlation, spearman
+from cohort.parallel import can_fork
 from cohort.regression import deming, passing_bablok
 from cohort.results import NotEstimableWarning
 from cohort.segments import SEGMENTS
@@ -203,6 +204,38 @@ def test_same_inputs_and_seed_give_an_identical_table(paired, table):
         warnings.simplefilter("ignore", NotEstimableWarning)
         again = agreement_table(paired, n_boot=B, seed=SEED)
     pd.testing.assert_frame_equal(table, again)
+
+
+@pytest.mark.skipif(not can_fork(), reason="worker processes are forked on Linux only")
+def test_worker_processes_give_the_serial_table_and_warnings(paired, table):
+    # every row carries its own seed and inputs, so two forked workers must reproduce the
+    # serial table exactly, and repeat the same not-estimable warnings in the same order
+    with warnings.catch_warnings(record=True) as serial:
+        warnings.simplefilter("always")
+        agreement_table(paired, n_boot=B, seed=SEED)
+    with warnings.catch_warnings(record=True) as forked:
+        warnings.simplefilter("always")
+        parallel = agreement_table(paired, n_boot=B, seed=SEED, workers=2)
+    pd.testing.assert_frame_equal(parallel, table, check_exact=True)
+    assert [str(w.message) for w in forked] == [str(w.message) for w in serial]
+    assert any(issubclass(w.category, NotEstimableWarning) for w in forked)
+
+
+def test_rows_above_pb_max_pairs_have_no_passing_bablok_fit_and_say_why(paired, table):
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", NotEstimableWarning)
+        capped = agreement_table(paired, n_boot=B, seed=SEED, pb_max_pairs=100)
+    big = capped["n_pairs"] > 100
+    assert big.any() and (~big).any()
+    pb = [c for c in AGREEMENT_COLUMNS if c.startswith("pb_") and c != "pb_ci_method"]
+    assert capped.loc[big, pb].isna().all().all()
+    assert capped.loc[big, "note"].str.contains("Passing-Bablok not computed").all()
+    assert not capped.loc[~big, "note"].str.contains("Passing-Bablok not computed").any()
+    pd.testing.assert_frame_equal(capped.loc[~big], table.loc[~big])  # small rows unchanged
+    kept = [c for c in AGREEMENT_COLUMNS if not c.startswith("pb_") and c != "note"]
+    pd.testing.assert_frame_equal(capped[kept], table[kept])  # nothing else changes
+    with pytest.raises(ValueError, match="pb_max_pairs must be a non-negative integer"):
+        agreement_table(paired, n_boot=0, pb_max_pairs=-1)
 
 
 def test_apex_rows_say_why_rm_corr_is_not_estimable(table):

@@ -42,7 +42,8 @@ def test_analysis_options_come_from_the_study_file(tmp_path):
 @pytest.mark.parametrize(
     "line, message",
     [("n_boots = 10", "unknown key 'n_boots'"), ("strata = 'all'", "strata is not valid"),
-     ('correction = "bonferroni"', "correction is not valid")],
+     ('correction = "bonferroni"', "correction is not valid"),
+     ("workers = -1", "workers is not valid"), ("workers = 'many'", "workers is not valid")],
 )  # fmt: skip
 def test_bad_analysis_options_are_refused(tmp_path, line, message):
     study_file = write_demo(tmp_path, n_subjects=6)

@@ -1,0 +1,72 @@
+"""Independent pieces of work spread over worker processes, with the results of a serial run.
+
+Used for the rows of the agreement table and for the figures: each piece is computed by a
+module-level function of its own arguments (its own seed included), so the results do not
+depend on which process computed them or in which order; they are returned in input order.
+Worker processes are forked (Linux only: elsewhere, and with one worker, the work runs in
+this process), so they share the parent's memory until they write to it, and each runs its
+numerical libraries single-threaded so that workers do not compete for the same cores.
+"""
+
+from __future__ import annotations
+
+import multiprocessing
+import os
+import sys
+from collections.abc import Callable, Iterable
+from concurrent.futures import ProcessPoolExecutor
+from typing import TypeVar
+
+Item = TypeVar("Item")
+Result = TypeVar("Result")
+
+MAX_DEFAULT_WORKERS = 4
+"""Most worker processes chosen automatically (memory grows with each)."""
+
+
+def available_cores() -> int:
+    """Cores this process may run on (its CPU affinity where the system tells it)."""
+    try:
+        return len(os.sched_getaffinity(0))
+    except AttributeError:  # pragma: no cover - not on Linux
+        return os.cpu_count() or 1
+
+
+def resolve_workers(workers: int) -> int:
+    """Worker processes to use: ``workers``, or for 0 one per available core (at most
+    :data:`MAX_DEFAULT_WORKERS`); always 1 where processes cannot be forked."""
+    if isinstance(workers, bool) or not isinstance(workers, int) or workers < 0:
+        raise ValueError(f"workers must be a non-negative integer (0 = automatic), got {workers!r}")
+    if not can_fork():
+        return 1
+    return workers if workers > 0 else max(1, min(MAX_DEFAULT_WORKERS, available_cores()))
+
+
+def can_fork() -> bool:
+    """Whether worker processes are forked here (Linux; fork is unsafe on macOS)."""
+    return sys.platform.startswith("linux") and "fork" in multiprocessing.get_all_start_methods()
+
+
+def _single_threaded() -> None:
+    try:
+        from threadpoolctl import threadpool_limits
+    except ImportError:  # pragma: no cover - a dependency; without it BLAS keeps its threads
+        return
+    threadpool_limits(1)
+
+
+def ordered_map(
+    func: Callable[[Item], Result], items: Iterable[Item], workers: int = 0
+) -> list[Result]:
+    """``[func(item) for item in items]``, computed by ``workers`` forked processes.
+
+    ``func`` must be a module-level function; items and results are pickled. With one
+    worker, one item or no fork, the loop runs in this process.
+    """
+    items = list(items)
+    n = min(resolve_workers(workers), len(items))
+    if n <= 1:
+        return [func(item) for item in items]
+    context = multiprocessing.get_context("fork")
+    with ProcessPoolExecutor(n, mp_context=context, initializer=_single_threaded) as pool:
+        return list(pool.map(func, items))
