@@ -99,7 +99,7 @@ def _step_name(line: str) -> str | None:
     if not match:
         return None
     name = re.sub(r" \(.*\)$", "", match.group(1))
-    return re.sub(r"^figure \d+: .*", "figures", name)
+    return re.sub(r"^figure( \d+)?: .*", "figures", name)
 
 
 def run_once(study: Path, out: Path, figures: bool, verbose: bool = False) -> Run:

@@ -544,14 +544,9 @@ def agreement_table(
                 )
                 jobs.append(({**identity, "stratum": stratum}, data, parameter in ratio_parameters))
     try:
-        done = ordered_map(functools.partial(_row_job, options=options), jobs, workers)
+        rows = ordered_map(functools.partial(_row_job, options=options), jobs, workers)
     finally:
         _PROCESS_COUNTS.clear()
-    rows = []
-    for row, caught in done:
-        for category, message in caught:
-            warnings.warn(message, category, stacklevel=2)
-        rows.append(row)
     return pd.DataFrame(rows, columns=list(AGREEMENT_COLUMNS))
 
 
@@ -570,14 +565,11 @@ def _process_counts(n_boot: int, seed: int | None) -> ResampleCounts:
 
 def _row_job(
     job: tuple[dict[str, str], PairedValues, bool], options: Mapping[str, object]
-) -> tuple[dict[str, object], list[tuple[type[Warning], str]]]:
-    """One row and the warnings it raised (category, message), for the parent to repeat."""
+) -> dict[str, object]:
+    """One row of the table (in this process or a worker)."""
     identity, data, ratio = job
     counts = _process_counts(options["n_boot"], options["seed"])
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always")
-        row = _table_row(identity, data, ratio=ratio, counts=counts, **options)
-    return row, [(w.category, str(w.message)) for w in caught]
+    return _table_row(identity, data, ratio=ratio, counts=counts, **options)
 
 
 def _stratum_values(x, y, codes: np.ndarray, n_labels: int) -> PairedValues:

@@ -42,6 +42,7 @@ from matplotlib.lines import Line2D
 from .agreement_plots import REGRESSION_KEYS, bland_altman_plot, method_scatter
 from .bullseye import COLORBAR_ROOM_MM, BullseyeGrid, bullseye_grid
 from .group_plots import group_distribution_plot, paired_lines_plot
+from .parallel import ordered_map
 from .results import CohortWarning
 from .segments import segment_model
 from .study import Study
@@ -1272,6 +1273,7 @@ def make_figures(
     dpi: float = 300,
     subjects_to_show: Sequence[str] = (),
     progress: Callable[[str], object] | None = None,
+    workers: int = 1,
 ) -> FigureSet:
     """Draw and save every figure of the report; return their records.
 
@@ -1294,7 +1296,11 @@ def make_figures(
         default: up to :data:`MAX_SUBJECTS_SHOWN` subjects positive by the reference for the
         first finding of the findings table, in order of subject ID.
     progress
-        Called with a short text once per figure written.
+        Called with a short text once per figure written (from the worker processes when
+        there are several).
+    workers
+        Processes drawing the parts of the set (:func:`cohort.parallel.ordered_map`; 0 = one
+        per core); the figures and records are the same for any number.
 
     Returns
     -------
@@ -1318,36 +1324,69 @@ def make_figures(
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)
 
-    sources = (
-        _agreement_figures(study, tables),
-        _prevalence_figures(study, tables),
-        _subject_figure(study, tables, subjects_to_show),
-        _median_figures(study),
-        _difference_figures(study),
-        _group_figures(study),
-        _paired_figures(study),
+    parts = (
+        (_agreement_figures, (study, tables)),
+        (_prevalence_figures, (study, tables)),
+        (_subject_figure, (study, tables, subjects_to_show)),
+        (_median_figures, (study,)),
+        (_difference_figures, (study,)),
+        (_group_figures, (study,)),
+        (_paired_figures, (study,)),
     )
+    global _PENDING
+    _PENDING = _Pending(parts, folder, tuple(formats), dpi, progress)
+    try:  # forked workers read _PENDING: only the part numbers are sent to them
+        done = ordered_map(_draw_part, range(len(parts)), workers)
+    finally:
+        _PENDING = None
+    records: list[FigureRecord] = []
+    skipped: list[SkippedFigure] = []
+    for part_records, part_skipped in done:
+        records += part_records
+        skipped += part_skipped
+    keys = [r.key for r in records]
+    if len(set(keys)) != len(keys):  # parts draw figures of distinct prefixes
+        raise RuntimeError(f"two parts of the figure set wrote the same key: {sorted(keys)}")
+    return FigureSet(records, skipped)
+
+
+@dataclass(frozen=True)
+class _Pending:
+    parts: tuple[tuple[Callable[..., Iterator[_Item]], tuple[Any, ...]], ...]
+    folder: Path
+    formats: tuple[str, ...]
+    dpi: float
+    progress: Callable[[str], object] | None
+
+
+_PENDING: _Pending | None = None
+
+
+def _draw_part(index: int) -> tuple[list[FigureRecord], list[SkippedFigure]]:
+    """Draw and save the figures of one part of the set (in this process or a worker)."""
+    if _PENDING is None:
+        raise RuntimeError("_draw_part runs only inside make_figures")
+    source, args = _PENDING.parts[index]
     records: list[FigureRecord] = []
     skipped: list[SkippedFigure] = []
     keys: set[str] = set()
-    for source in sources:
-        for item in source:
-            if isinstance(item, SkippedFigure):
-                skipped.append(item)
-                continue
-            key = _unique(item.key, keys)
-            try:
-                paths = _save(item.fig, folder / key, formats, dpi)
-            finally:
-                plt.close(item.fig)
-            records.append(
-                FigureRecord(
-                    key, item.title, item.caption, item.section, item.parameter, item.method, paths
-                )
+    for item in source(*args):
+        if isinstance(item, SkippedFigure):
+            skipped.append(item)
+            continue
+        key = _unique(item.key, keys)
+        try:
+            paths = _save(item.fig, _PENDING.folder / key, _PENDING.formats, _PENDING.dpi)
+        finally:
+            plt.close(item.fig)
+        records.append(
+            FigureRecord(
+                key, item.title, item.caption, item.section, item.parameter, item.method, paths
             )
-            if progress is not None:
-                progress(f"figure {len(records)}: {key}")
-    return FigureSet(records, skipped)
+        )
+        if _PENDING.progress is not None:
+            _PENDING.progress(f"figure: {key}")
+    return records, skipped
 
 
 def _save(fig: Figure, stem: Path, formats: Sequence[str], dpi: float) -> tuple[Path, ...]:

@@ -10,9 +10,11 @@ numerical libraries single-threaded so that workers do not compete for the same 
 
 from __future__ import annotations
 
+import functools
 import multiprocessing
 import os
 import sys
+import warnings
 from collections.abc import Callable, Iterable
 from concurrent.futures import ProcessPoolExecutor
 from typing import TypeVar
@@ -60,13 +62,29 @@ def ordered_map(
 ) -> list[Result]:
     """``[func(item) for item in items]``, computed by ``workers`` forked processes.
 
-    ``func`` must be a module-level function; items and results are pickled. With one
-    worker, one item or no fork, the loop runs in this process.
+    ``func`` must be a module-level function; items and results are pickled. The warnings
+    each call raises are raised again here, in input order, whichever process ran it. With
+    one worker, one item or no fork, the loop runs in this process.
     """
     items = list(items)
     n = min(resolve_workers(workers), len(items))
+    job = functools.partial(_capturing, func)
     if n <= 1:
-        return [func(item) for item in items]
-    context = multiprocessing.get_context("fork")
-    with ProcessPoolExecutor(n, mp_context=context, initializer=_single_threaded) as pool:
-        return list(pool.map(func, items))
+        done = [job(item) for item in items]
+    else:
+        context = multiprocessing.get_context("fork")
+        with ProcessPoolExecutor(n, mp_context=context, initializer=_single_threaded) as pool:
+            done = list(pool.map(job, items))
+    results = []
+    for result, caught in done:
+        for category, message in caught:
+            warnings.warn(message, category, stacklevel=2)
+        results.append(result)
+    return results
+
+
+def _capturing(func: Callable[[Item], Result], item: Item):
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        result = func(item)
+    return result, [(w.category, str(w.message)) for w in caught]

@@ -95,7 +95,13 @@ def run(
         if options.figures:
             from .figure_set import make_figures
 
-            records = make_figures(study, analysis.tables, staging / "figures", progress=say)
+            records = make_figures(
+                study,
+                analysis.tables,
+                staging / "figures",
+                progress=say,
+                workers=options.workers,
+            )
         methods = methods_markdown(analysis)
         (staging / "methods.md").write_text(methods, encoding="utf-8")
         after = {k: sha256(p) for k, p in inputs.items()}

@@ -36,6 +36,7 @@ from cohort.figure_set import (
     FigureSet,
     make_figures,
 )
+from cohort.parallel import can_fork
 from cohort.study import load_study
 from cohort.units import PARAMETERS
 
@@ -220,6 +221,23 @@ def test_progress_is_called_once_per_figure(drawn):
     records, _, messages, _ = drawn
     assert len(messages) == len(records)
     assert all(r.key in m for r, m in zip(records, messages, strict=True))
+
+
+@pytest.mark.skipif(not can_fork(), reason="worker processes are forked on Linux only")
+def test_worker_processes_draw_the_same_set(study, tables, drawn, tmp_path):
+    # each part of the set is drawn from the same inputs in whichever process: the records
+    # and every file must equal those of the serial run, byte for byte
+    records, folder, _, _ = drawn
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        parallel = make_figures(study, tables, tmp_path, dpi=72, workers=2)
+    assert [(r.key, r.title, r.caption, r.section) for r in parallel] == [
+        (r.key, r.title, r.caption, r.section) for r in records
+    ]
+    assert parallel.skipped == records.skipped
+    for record in parallel:
+        for path in record.paths:
+            assert path.read_bytes() == (folder / path.name).read_bytes(), path.name
 
 
 # --- captions ----------------------------------------------------------------------------

@@ -1,0 +1,54 @@
+"""Tests of cohort.parallel: order, warnings and worker counts of ordered_map."""
+
+from __future__ import annotations
+
+import os
+import warnings
+
+import pytest
+
+from cohort.parallel import MAX_DEFAULT_WORKERS, can_fork, ordered_map, resolve_workers
+from cohort.results import NotEstimableWarning
+
+
+def _square_and_pid(x: int) -> tuple[int, int]:
+    if x % 3 == 0:
+        warnings.warn(f"item {x} is a multiple of three", NotEstimableWarning, stacklevel=2)
+    return x * x, os.getpid()
+
+
+def test_serial_results_and_warnings_in_input_order():
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        got = ordered_map(_square_and_pid, range(7), workers=1)
+    assert [r for r, _ in got] == [x * x for x in range(7)]
+    assert {pid for _, pid in got} == {os.getpid()}
+    assert [str(w.message) for w in caught] == [
+        f"item {x} is a multiple of three" for x in (0, 3, 6)
+    ]
+    assert all(issubclass(w.category, NotEstimableWarning) for w in caught)
+
+
+@pytest.mark.skipif(not can_fork(), reason="worker processes are forked on Linux only")
+def test_workers_give_the_serial_results_and_warnings():
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        got = ordered_map(_square_and_pid, range(40), workers=2)
+    assert [r for r, _ in got] == [x * x for x in range(40)]
+    assert os.getpid() not in {pid for _, pid in got}  # computed in the workers
+    assert [str(w.message) for w in caught] == [
+        f"item {x} is a multiple of three" for x in range(0, 40, 3)
+    ]
+
+
+def test_worker_counts():
+    assert resolve_workers(1) == 1
+    if can_fork():
+        assert resolve_workers(3) == 3
+        assert 1 <= resolve_workers(0) <= MAX_DEFAULT_WORKERS
+    else:
+        assert resolve_workers(3) == 1
+    for bad in (-1, 1.5, True, "2"):
+        with pytest.raises(ValueError, match="workers must be a non-negative integer"):
+            resolve_workers(bad)
+    assert ordered_map(_square_and_pid, [], workers=2) == []
