@@ -6,8 +6,9 @@ subjects x 17 segments x (reference + 1 test method) x 3 parameters, written as 
 run as a child process, ``python -m cohort.cli run STUDY --out DIR --force`` with the default
 bootstrap (B = 2000), with and without figures (with figures up to ``--figures-up-to``
 subjects, 10,000 by default), so that the wall time is the whole command
-(start-up, loading, analysis, writing) and the peak memory is the child's own maximum
-resident set size (``os.wait4`` rusage of that child alone).
+(start-up, loading, analysis, writing) and the peak memory is the larger of the child's own
+maximum resident set size (``os.wait4``) and the largest PSS of its process tree sampled
+every 0.2 s (the run forks worker processes for the agreement rows and the figures).
 
 Per-step times come from the ``[cohort] ...`` progress lines of the child's stderr, stamped
 as they arrive: a step lasts from its line to the next one ("load" is start-up and
@@ -15,7 +16,8 @@ as they arrive: a step lasts from its line to the next one ("load" is start-up a
 
 Printed: one line per (size, figures) with the median wall time and peak memory over
 ``--repeats`` runs, the growth exponent log(t2/t1)/log(n2/n1) between consecutive sizes,
-the per-step medians, the largest resident memory sampled (every 0.2 s) during each step,
+the per-step medians, the largest memory of the run's process tree (PSS summed over the
+command and its forked workers, sampled every 0.2 s) during each step,
 and the targets (10,000 subjects with figures under 60 s; 100,000
 without figures under 300 s and 8 GB).
 
@@ -79,19 +81,39 @@ def write_cohort(folder: Path, n_subjects: int, seed: int = 20261202) -> Path:
 class Run:
     wall: float
     peak_bytes: int
+    """Largest of the run's own maximum resident set size and the sampled PSS of its tree."""
     steps: dict[str, float] = field(default_factory=dict)
     step_peaks: dict[str, int] = field(default_factory=dict)
     """Largest resident set size sampled (every 0.2 s) while each step ran."""
 
 
-def _rss(pid: int) -> int:
-    try:
-        for line in Path(f"/proc/{pid}/status").read_text().splitlines():
-            if line.startswith("VmRSS:"):
-                return int(line.split()[1]) * 1024
-    except OSError:
-        pass
-    return 0
+def _tree(pid: int) -> list[int]:
+    """``pid`` and its descendants (the worker processes a run forks)."""
+    out, todo = [], [pid]
+    while todo:
+        p = todo.pop()
+        out.append(p)
+        try:
+            for task in Path(f"/proc/{p}/task").iterdir():
+                todo += [int(c) for c in (task / "children").read_text().split()]
+        except OSError:
+            pass
+    return out
+
+
+def _memory(pid: int) -> int:
+    """Proportional set size (PSS) summed over the run's process tree: pages shared by the
+    forked workers with their parent count once in all, unlike a sum of resident sizes."""
+    total = 0
+    for p in _tree(pid):
+        try:
+            for line in Path(f"/proc/{p}/smaps_rollup").read_text().splitlines():
+                if line.startswith("Pss:"):
+                    total += int(line.split()[1]) * 1024
+                    break
+        except OSError:
+            pass
+    return total
 
 
 def _step_name(line: str) -> str | None:
@@ -117,7 +139,7 @@ def run_once(study: Path, out: Path, figures: bool, verbose: bool = False) -> Ru
     def sample() -> None:  # attribute memory to the step under way
         while not done.wait(0.2):
             name = marks[-1][0]
-            peaks[name] = max(peaks.get(name, 0), _rss(child.pid))
+            peaks[name] = max(peaks.get(name, 0), _memory(child.pid))
 
     sampler = threading.Thread(target=sample, daemon=True)
     sampler.start()
@@ -144,7 +166,8 @@ def run_once(study: Path, out: Path, figures: bool, verbose: bool = False) -> Ru
     steps["report"] = steps.pop("writing the report", 0.0)
     if "writing the report" in peaks:
         peaks["report"] = peaks.pop("writing the report")
-    return Run(end - start, usage.ru_maxrss * 1024, steps, peaks)
+    peak = max(usage.ru_maxrss * 1024, *peaks.values(), 0)
+    return Run(end - start, peak, steps, peaks)
 
 
 def machine() -> str:
@@ -237,7 +260,7 @@ def main(argv: list[str] | None = None) -> int:
                 t = statistics.median(r.steps.get(name, 0.0) for r in runs)
                 parts.append(f"{name} {t:.1f} ({100 * t / wall:.0f}%)")
             print(f"  {n:,} {'figures' if figures else 'no figures'}: " + ", ".join(parts))
-        print("\nper-step largest resident memory sampled (GB), last repeat:")
+        print("\nper-step largest memory sampled (PSS of the process tree, GB), last repeat:")
         for (n, figures), runs in results.items():
             peaks = runs[-1].step_peaks
             parts = [f"{name} {peak / 1e9:.2f}" for name, peak in peaks.items()]

@@ -42,7 +42,7 @@ from matplotlib.lines import Line2D
 from .agreement_plots import REGRESSION_KEYS, bland_altman_plot, method_scatter
 from .bullseye import COLORBAR_ROOM_MM, BullseyeGrid, bullseye_grid
 from .group_plots import group_distribution_plot, paired_lines_plot
-from .parallel import ordered_map
+from .parallel import map_shared
 from .results import CohortWarning
 from .segments import segment_model
 from .study import Study
@@ -1333,12 +1333,8 @@ def make_figures(
         (_group_figures, (study,)),
         (_paired_figures, (study,)),
     )
-    global _PENDING
-    _PENDING = _Pending(parts, folder, tuple(formats), dpi, progress)
-    try:  # forked workers read _PENDING: only the part numbers are sent to them
-        done = ordered_map(_draw_part, range(len(parts)), workers)
-    finally:
-        _PENDING = None
+    pending = _Pending(parts, folder, tuple(formats), dpi, progress)
+    done = map_shared(_draw_part, pending, len(parts), workers)
     records: list[FigureRecord] = []
     skipped: list[SkippedFigure] = []
     for part_records, part_skipped in done:
@@ -1359,14 +1355,9 @@ class _Pending:
     progress: Callable[[str], object] | None
 
 
-_PENDING: _Pending | None = None
-
-
-def _draw_part(index: int) -> tuple[list[FigureRecord], list[SkippedFigure]]:
+def _draw_part(pending: _Pending, index: int) -> tuple[list[FigureRecord], list[SkippedFigure]]:
     """Draw and save the figures of one part of the set (in this process or a worker)."""
-    if _PENDING is None:
-        raise RuntimeError("_draw_part runs only inside make_figures")
-    source, args = _PENDING.parts[index]
+    source, args = pending.parts[index]
     records: list[FigureRecord] = []
     skipped: list[SkippedFigure] = []
     keys: set[str] = set()
@@ -1376,7 +1367,7 @@ def _draw_part(index: int) -> tuple[list[FigureRecord], list[SkippedFigure]]:
             continue
         key = _unique(item.key, keys)
         try:
-            paths = _save(item.fig, _PENDING.folder / key, _PENDING.formats, _PENDING.dpi)
+            paths = _save(item.fig, pending.folder / key, pending.formats, pending.dpi)
         finally:
             plt.close(item.fig)
         records.append(
@@ -1384,8 +1375,8 @@ def _draw_part(index: int) -> tuple[list[FigureRecord], list[SkippedFigure]]:
                 key, item.title, item.caption, item.section, item.parameter, item.method, paths
             )
         )
-        if _PENDING.progress is not None:
-            _PENDING.progress(f"figure: {key}")
+        if pending.progress is not None:
+            pending.progress(f"figure: {key}")
     return records, skipped
 
 

@@ -34,6 +34,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from .parallel import map_shared
 from .results import CohortWarning
 
 FORMULA_PREFIXES = ("=", "+", "-", "@", "\t", "\r")
@@ -129,30 +130,43 @@ def _too_long_note(name: str, n_rows: int) -> str:
     )
 
 
-def write_tables(tables: Mapping[str, pd.DataFrame], folder: Path) -> list[Path]:
+def write_tables(
+    tables: Mapping[str, pd.DataFrame], folder: Path, *, workers: int = 1
+) -> list[Path]:
     """Write each table as ``folder/tables/<name>.csv`` and all of them to ``tables.xlsx``.
 
     A table longer than an Excel worksheet (:data:`EXCEL_MAX_ROWS`, header included) gets a
     sheet with a note instead of its rows, and a :class:`~cohort.results.CohortWarning`.
+    With ``workers`` > 1 the CSV files and the workbook are written by two processes
+    (:func:`cohort.parallel.map_shared`); the files are the same.
     """
     csv_folder = folder / "tables"
     csv_folder.mkdir(parents=True, exist_ok=True)
-    written = []
+    csvs = []
     sheets = []
     for name, table in tables.items():
-        path = csv_folder / f"{name}.csv"
         guarded = guard_text(table)
-        guarded.to_csv(path, index=False, lineterminator="\n")
-        written.append(path)
+        csvs.append((csv_folder / f"{name}.csv", guarded))
         if len(guarded) + 1 > EXCEL_MAX_ROWS:
             note = _too_long_note(name, len(guarded))
             warnings.warn(f"tables.xlsx: {note}", CohortWarning, stacklevel=2)
             guarded = pd.DataFrame({"note": [note]})
         sheets.append((name[:31], guarded))
     xlsx = folder / "tables.xlsx"
-    write_workbook(sheets, xlsx)
-    written.append(xlsx)
-    return written
+    map_shared(_write_part, (csvs, sheets, xlsx), 2, workers)
+    return [path for path, _ in csvs] + [xlsx]
+
+
+def _write_part(
+    shared: tuple[list[tuple[Path, pd.DataFrame]], list[tuple[str, pd.DataFrame]], Path],
+    part: int,
+) -> None:
+    csvs, sheets, xlsx = shared
+    if part == 0:
+        for path, guarded in csvs:
+            guarded.to_csv(path, index=False, lineterminator="\n")
+    else:
+        write_workbook(sheets, xlsx)
 
 
 def write_workbook(sheets: Sequence[tuple[str, pd.DataFrame]], path: Path) -> Path:

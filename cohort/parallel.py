@@ -21,6 +21,7 @@ from typing import TypeVar
 
 Item = TypeVar("Item")
 Result = TypeVar("Result")
+Shared = TypeVar("Shared")
 
 MAX_DEFAULT_WORKERS = 4
 """Most worker processes chosen automatically (memory grows with each)."""
@@ -88,3 +89,27 @@ def _capturing(func: Callable[[Item], Result], item: Item):
         warnings.simplefilter("always")
         result = func(item)
     return result, [(w.category, str(w.message)) for w in caught]
+
+
+_SHARED: tuple[Callable[..., object], object] | None = None
+
+
+def map_shared(
+    func: Callable[[Shared, int], Result], shared: Shared, n: int, workers: int = 0
+) -> list[Result]:
+    """``[func(shared, i) for i in range(n)]`` by :func:`ordered_map`; ``shared`` (large
+    inputs: a study, its tables) reaches forked workers through the fork, not by pickling,
+    and only the numbers ``i`` and the results are sent between processes."""
+    global _SHARED
+    _SHARED = (func, shared)
+    try:
+        return ordered_map(_call_shared, range(n), workers)
+    finally:
+        _SHARED = None
+
+
+def _call_shared(index: int):
+    if _SHARED is None:
+        raise RuntimeError("_call_shared runs only inside map_shared")
+    func, shared = _SHARED
+    return func(shared, index)

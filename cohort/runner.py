@@ -90,7 +90,7 @@ def run(
     try:
         analysis = analyse(study, options, progress=say)
         say("writing tables")
-        written = write_tables(analysis.tables, staging)
+        written = write_tables(analysis.tables, staging, workers=options.workers)
         records = []
         if options.figures:
             from .figure_set import make_figures

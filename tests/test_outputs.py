@@ -3,10 +3,13 @@ numbers kept as numbers, atomic folders."""
 
 from __future__ import annotations
 
+import zipfile
+
 import pandas as pd
 import pytest
 
 from cohort.outputs import OutputExistsError, guard_text, publish, staging_folder, write_tables
+from cohort.parallel import can_fork
 
 
 def test_text_that_a_spreadsheet_would_run_is_quoted():
@@ -48,3 +51,26 @@ def test_staging_refuses_a_non_empty_folder_and_publish_replaces(tmp_path):
     publish(staging, out)
     assert [p.name for p in out.iterdir()] == ["new.txt"]
     assert [p.name for p in tmp_path.iterdir()] == ["out"]
+
+
+@pytest.mark.skipif(not can_fork(), reason="worker processes are forked on Linux only")
+def test_two_workers_write_the_same_files(tmp_path):
+    # the CSV files and the workbook are written by two processes: same bytes (CSV) and the
+    # same worksheets (the workbook's zip entries carry write times)
+    tables = {
+        "agreement": pd.DataFrame({"method": ["=1+2", "ok"], "bias": [-0.5, 0.25]}),
+        "coverage": pd.DataFrame({"segment": list(range(1, 18)), "n": [3] * 17}),
+    }
+    serial = write_tables(tables, tmp_path / "serial")
+    forked = write_tables(tables, tmp_path / "forked", workers=2)
+    assert [p.relative_to(tmp_path / "serial") for p in serial] == [
+        p.relative_to(tmp_path / "forked") for p in forked
+    ]
+    for a, b in zip(serial, forked, strict=True):
+        if a.suffix == ".csv":
+            assert a.read_bytes() == b.read_bytes()
+        else:
+            with zipfile.ZipFile(a) as za, zipfile.ZipFile(b) as zb:
+                assert za.namelist() == zb.namelist()
+                for name in za.namelist():
+                    assert za.read(name) == zb.read(name), name
