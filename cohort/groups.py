@@ -891,8 +891,9 @@ def subject_summaries(
     out["group"] = out["subject"].map(group_of)
     out["n_segments"] = out["n_segments"].astype(int)
     rank = {p: i for i, p in enumerate(PARAMETERS)}
-    out["_p"] = out["parameter"].map(rank).fillna(len(rank))
-    out["_s"] = out["summary"].map({s: i for i, s in enumerate(SUMMARY_KINDS)})
+    # as plain text: a categorical column would map to a categorical and sort by its codes
+    out["_p"] = out["parameter"].astype(str).map(rank).fillna(len(rank))
+    out["_s"] = out["summary"].astype(str).map({s: i for i, s in enumerate(SUMMARY_KINDS)})
     out = out.sort_values(["_p", "parameter", "method", "_s", "subject"], kind="stable")
     return out[list(SUMMARY_COLUMNS)].reset_index(drop=True)
 

@@ -203,7 +203,24 @@ def load_study(source: str | Path | StudySettings) -> Study:
     canonical = _canonical_values(records, subjects, settings)
     paired = _pair(canonical, settings.reference)
     _mark_unpaired(records, canonical, paired, settings.reference)
+    for frame in (records, canonical, paired):
+        _compact(frame)
     return Study(settings, subjects, canonical, paired, records, log.warnings)
+
+
+COMPACT_COLUMNS = frozenset(
+    ("subject", "method", "reference", "parameter", "input_parameter", "source_column",
+     "source_file", "status", "reason", "group", "segment_name", "ring", "territory")
+)  # fmt: skip
+"""Text columns of few distinct values (or repeated per segment) that the study's long
+tables hold as pandas categoricals: the same text in a tenth of the memory (10 million
+input values of a 100,000-subject cohort: 2.5 GB less)."""
+
+
+def _compact(frame: pd.DataFrame) -> None:
+    for column in frame.columns:
+        if column in COMPACT_COLUMNS and not isinstance(frame[column].dtype, pd.CategoricalDtype):
+            frame[column] = frame[column].astype("category")
 
 
 def _harmonise(

@@ -14,7 +14,7 @@ import pandas as pd
 import pytest
 
 from cohort.problems import StudyError
-from cohort.study import PAIRED_COLUMNS, load_study
+from cohort.study import COMPACT_COLUMNS, PAIRED_COLUMNS, load_study
 
 from .conftest import HEADER, small_subjects, small_values, write_csv
 
@@ -49,6 +49,17 @@ def test_study_tables_carry_no_attrs(make_study):
     study = load_study(make_study())
     for frame in (study.values, study.paired, study.records, study.subjects):
         assert frame.attrs == {}
+
+
+def test_repeated_text_columns_are_categoricals_of_the_same_text(make_study):
+    # memory at scale: text repeated per segment is held once per distinct value
+    study = load_study(make_study())
+    for frame in (study.values, study.paired, study.records):
+        for column in COMPACT_COLUMNS & set(frame.columns):
+            assert isinstance(frame[column].dtype, pd.CategoricalDtype), column
+    assert sorted(study.paired["method"].astype(str).unique()) == ["fast"]
+    assert set(study.records["status"].astype(str)) == {"used"}
+    assert set(study.values["subject"].astype(str)) == {"0017", "0018", "0019"}
 
 
 def test_subject_ids_stay_text(make_study):
