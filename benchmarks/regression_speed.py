@@ -96,6 +96,25 @@ def main() -> None:
             1,
         )
         print(f"  {label:>5} data: Deming cluster bootstrap, B=2000: {t_dem:.2f} s in total")
+    print(
+        "\nPassing-Bablok weighted-slope cluster bootstrap, B=2000 "
+        "(regression._pb_weighted_draws; median of 3, seconds)"
+    )
+    print(f"{'subjects':>9} {'per subject':>11} {'pairs':>6} {'slopes':>10} {'seconds':>8}")
+    for n_subjects, per_subject in ((48, 17), (100, 17), (235, 17), (1_000, 1), (4_000, 1)):
+        codes = np.repeat(np.arange(n_subjects), per_subject)
+        x, y, _ = cohort(-(-codes.size // 17), 1)  # values of a 0.1-rounded export
+        x, y = x[: codes.size], y[: codes.size]
+        rng = np.random.default_rng(7)
+        counts = np.stack(
+            [np.bincount(rng.integers(0, n_subjects, n_subjects), minlength=n_subjects)
+             for _ in range(2000)]
+        )  # fmt: skip
+        t_w, _ = timed(
+            lambda x=x, y=y, c=codes, k=counts: regression._pb_weighted_draws(x, y, c, k), 3
+        )
+        n_slopes = codes.size * (codes.size - 1) // 2
+        print(f"{n_subjects:>9} {per_subject:>11} {codes.size:>6} {n_slopes:>10,} {t_w:8.2f}")
     print(f"\nload average at end: {os.getloadavg()[0]:.2f}")
 
 

@@ -137,8 +137,8 @@ def write_tables(
 
     A table longer than an Excel worksheet (:data:`EXCEL_MAX_ROWS`, header included) gets a
     sheet with a note instead of its rows, and a :class:`~cohort.results.CohortWarning`.
-    With ``workers`` > 1 the CSV files and the workbook are written by two processes
-    (:func:`cohort.parallel.map_shared`); the files are the same.
+    With ``workers`` > 1 the workbook and pieces of the CSV files are written by several
+    processes (:func:`cohort.parallel.map_shared`); the files are the same.
     """
     csv_folder = folder / "tables"
     csv_folder.mkdir(parents=True, exist_ok=True)
@@ -153,20 +153,38 @@ def write_tables(
             guarded = pd.DataFrame({"note": [note]})
         sheets.append((name[:31], guarded))
     xlsx = folder / "tables.xlsx"
-    map_shared(_write_part, (csvs, sheets, xlsx), 2, workers)
+    # the workbook, then the CSV files in pieces of rows (a long table's pieces are written
+    # side by side and joined): pandas writes each row the same whatever the piece
+    pieces: list[tuple[int, int, int, Path]] = [(-1, 0, 0, xlsx)]
+    for t, (path, guarded) in enumerate(csvs):
+        starts = range(0, max(len(guarded), 1), _CSV_ROWS_PER_PIECE)
+        for k, start in enumerate(starts):
+            part = path if len(starts) == 1 else path.with_name(f"{path.name}.part{k}")
+            pieces.append((t, start, start + _CSV_ROWS_PER_PIECE, part))
+    map_shared(_write_piece, (csvs, sheets, pieces), len(pieces), workers)
+    for t, (path, _) in enumerate(csvs):
+        parts = [part for table, _, _, part in pieces if table == t and part != path]
+        if parts:
+            with path.open("wb") as out:
+                for part in parts:
+                    with part.open("rb") as handle:
+                        shutil.copyfileobj(handle, out, 1 << 24)
+                    part.unlink()
     return [path for path, _ in csvs] + [xlsx]
 
 
-def _write_part(
-    shared: tuple[list[tuple[Path, pd.DataFrame]], list[tuple[str, pd.DataFrame]], Path],
-    part: int,
-) -> None:
-    csvs, sheets, xlsx = shared
-    if part == 0:
-        for path, guarded in csvs:
-            guarded.to_csv(path, index=False, lineterminator="\n")
-    else:
-        write_workbook(sheets, xlsx)
+_CSV_ROWS_PER_PIECE = 250_000
+
+
+def _write_piece(shared, index: int) -> None:
+    """One piece of :func:`write_tables`: the workbook, or rows of one CSV file."""
+    csvs, sheets, pieces = shared
+    table, start, stop, path = pieces[index]
+    if table < 0:
+        write_workbook(sheets, path)
+        return
+    guarded = csvs[table][1]
+    guarded.iloc[start:stop].to_csv(path, index=False, header=start == 0, lineterminator="\n")
 
 
 def write_workbook(sheets: Sequence[tuple[str, pd.DataFrame]], path: Path) -> Path:

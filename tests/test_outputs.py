@@ -8,6 +8,7 @@ import zipfile
 import pandas as pd
 import pytest
 
+from cohort import outputs
 from cohort.outputs import OutputExistsError, guard_text, publish, staging_folder, write_tables
 from cohort.parallel import can_fork
 
@@ -54,15 +55,22 @@ def test_staging_refuses_a_non_empty_folder_and_publish_replaces(tmp_path):
 
 
 @pytest.mark.skipif(not can_fork(), reason="worker processes are forked on Linux only")
-def test_two_workers_write_the_same_files(tmp_path):
-    # the CSV files and the workbook are written by two processes: same bytes (CSV) and the
-    # same worksheets (the workbook's zip entries carry write times)
+@pytest.mark.parametrize("rows_per_piece", [250_000, 4])
+def test_two_workers_write_the_same_files(tmp_path, monkeypatch, rows_per_piece):
+    # the workbook and pieces of the CSV files are written by two processes: same bytes
+    # (CSV, also when a file is joined from pieces) and the same worksheets (the workbook's
+    # zip entries carry write times)
     tables = {
         "agreement": pd.DataFrame({"method": ["=1+2", "ok"], "bias": [-0.5, 0.25]}),
         "coverage": pd.DataFrame({"segment": list(range(1, 18)), "n": [3] * 17}),
     }
     serial = write_tables(tables, tmp_path / "serial")
+    monkeypatch.setattr(outputs, "_CSV_ROWS_PER_PIECE", rows_per_piece)  # 17 rows: 5 pieces
     forked = write_tables(tables, tmp_path / "forked", workers=2)
+    assert sorted(p.name for p in (tmp_path / "forked" / "tables").iterdir()) == [
+        "agreement.csv",
+        "coverage.csv",
+    ]  # the pieces are joined and removed
     assert [p.relative_to(tmp_path / "serial") for p in serial] == [
         p.relative_to(tmp_path / "forked") for p in forked
     ]
