@@ -50,6 +50,7 @@ from statsmodels.tools.sm_exceptions import ConvergenceWarning, IterationLimitWa
 
 from .bootstrap import DEFAULT_SEED
 from .multiplicity import HOLM, adjust_table, check_correction
+from .parallel import map_shared
 from .proportions import wilson_interval as _wilson
 from .results import ConfidenceInterval, NotEstimableWarning, warn_not_estimable
 from .segments import SEGMENTS, TERRITORIES
@@ -1711,6 +1712,7 @@ def finding_models(
     covariates: Sequence[str] = (),
     correction: str = HOLM,
     confidence_level: float = 0.95,
+    workers: int = 1,
 ) -> pd.DataFrame:
     """Segment findings by group: GEE logistic ``positive ~ C(group) [+ covariates]``.
 
@@ -1721,7 +1723,9 @@ def finding_models(
     odds ratios against the first group. Not estimable, with the reason, under separation
     (a group whose segments all have the same outcome: log odds ratios infinite); the
     subject-level Fisher tests of :func:`compare_proportions` still answer then.
-    Validated against a direct ``statsmodels.formula.api.gee`` fit.
+    Validated against a direct ``statsmodels.formula.api.gee`` fit. The fits (one per
+    method and finding) run in ``workers`` processes (:func:`cohort.parallel.map_shared`),
+    with the same results.
     """
     segment_findings = _require(
         segment_findings,
@@ -1733,20 +1737,27 @@ def finding_models(
     data, n_missing = _positive_flags(segment_findings, "segment_findings")
     info = _subject_info(subjects, covariates, data)
     order = _order(info["group"], group_order, "subjects")
-    rows: list[dict[str, object]] = []
+    pairs = list(_pairs(data, ("method", "finding")))
+    shared = (data, pairs, info, order, tuple(covariates), confidence_level)
     with _unique_warnings():
-        for method, finding in _pairs(data, ("method", "finding")):
-            part = data[data["method"].eq(method) & data["finding"].eq(finding)]
-            key = {"method": method, "finding": finding, "model": FINDING_BY_GROUP}
-            y = part["positive"].to_numpy(dtype=float)
-            rows += _fit_rows(
-                part, y, info, order, covariates, "gee", key, confidence_level, "log odds ratio"
-            )
-    table = _finish_models(rows, correction)
+        fits = map_shared(_finding_fit, shared, len(pairs), workers)
+    table = _finish_models([row for rows in fits for row in rows], correction)
     if n_missing:
         left_out = f"{n_missing} rows without a positive flag left out"
         table["note"] = [_join(n, left_out) for n in table["note"]]
     return table
+
+
+def _finding_fit(shared, index: int) -> list[dict[str, object]]:
+    """The GEE rows of one (method, finding) of :func:`finding_models`."""
+    data, pairs, info, order, covariates, confidence_level = shared
+    method, finding = pairs[index]
+    part = data[data["method"].eq(method) & data["finding"].eq(finding)]
+    key = {"method": method, "finding": finding, "model": FINDING_BY_GROUP}
+    y = part["positive"].to_numpy(dtype=float)
+    return _fit_rows(
+        part, y, info, order, covariates, "gee", key, confidence_level, "log odds ratio"
+    )
 
 
 # --- everything at once -------------------------------------------------------------------
@@ -1803,6 +1814,7 @@ def group_comparison_table(
     fisher_max_tables: int = FISHER_MAX_TABLES,
     fisher_draws: int = FISHER_DRAWS,
     seed: int | None = DEFAULT_SEED,
+    workers: int = 1,
 ) -> GroupComparison:
     """The whole group comparison of a study: summaries, descriptives, tests, models.
 
@@ -1813,7 +1825,7 @@ def group_comparison_table(
     within its stated families by ``correction`` (see :func:`compare_summaries`,
     :func:`compare_proportions`, :func:`group_models`). One linear-model path is chosen
     for all fits (:func:`choose_model_path` on the largest fit); ``model_path`` of the
-    result says which and why.
+    result says which and why. ``workers``: processes for the GEE fits (same results).
     """
     correction = check_correction(correction)
     _check_level(confidence_level)
@@ -1841,7 +1853,7 @@ def group_comparison_table(
             parts.append(
                 finding_models(
                     segment_findings, subjects, order, covariates=covariates,
-                    correction=correction, confidence_level=confidence_level,
+                    correction=correction, confidence_level=confidence_level, workers=workers,
                 )
             )  # fmt: skip
         models = pd.concat(parts, ignore_index=True)

@@ -266,6 +266,7 @@ def analyse(
             correction=options.correction,
             confidence_level=options.confidence_level,
             seed=options.seed,
+            workers=options.workers,
         ),
     )
 

@@ -30,6 +30,7 @@ from statsmodels.tools.sm_exceptions import ConvergenceWarning
 
 from cohort import groups as G
 from cohort.demo import write_demo
+from cohort.parallel import can_fork
 from cohort.results import NotEstimableWarning
 from cohort.study import load_study
 
@@ -617,6 +618,17 @@ def test_gee_matches_a_direct_statsmodels_fit(study, result):
         assert rows.loc[f"group[{g}]", "std_error"] == pytest.approx(fit.bse[name], rel=1e-6)
     names = [f"C(group, Treatment('control'))[T.{g}]" for g in ("acute", "chronic")]
     assert rows.loc[G.JOINT_GROUP, "statistic"] == pytest.approx(joint_wald(fit, names), rel=1e-6)
+
+
+@pytest.mark.skipif(not can_fork(), reason="worker processes are forked on Linux only")
+def test_gee_fits_in_worker_processes_give_the_same_table(study, result):
+    segment, _ = demo_findings(study.values)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        forked = G.finding_models(segment, study.subjects, ORDER, workers=2)
+    serial = result.models[result.models["model"].eq(G.FINDING_BY_GROUP)].reset_index(drop=True)
+    pd.testing.assert_frame_equal(forked, serial, check_exact=True)
+    assert any("separation" in str(w.message) for w in caught)  # repeated from the workers
 
 
 def test_gee_separation_is_not_estimable_with_the_reason(result):
