@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import argparse
 import sys
+import warnings
 from collections.abc import Sequence
 
 from .cautions import CAUTION
@@ -198,9 +199,16 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+def _show_warning(message, category, filename, lineno, file=None, line=None) -> None:
+    """Warnings on the command line as one plain line each, without Python's source line."""
+    print(f"cohort: {category.__name__}: {message}", file=file or sys.stderr, flush=True)
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     parser = build_parser()
     args = parser.parse_args(argv)
+    shown = warnings.showwarning
+    warnings.showwarning = _show_warning
     try:
         return args.func(args)
     except StudyError as exc:
@@ -212,6 +220,8 @@ def main(argv: Sequence[str] | None = None) -> int:
             print(exc.code, file=sys.stderr)
             return 2
         raise
+    finally:
+        warnings.showwarning = shown
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -91,3 +91,19 @@ def test_study_file_and_flags_together_are_refused(tmp_path):
 def test_missing_study_file_exits_2():
     result = run_cli("check", "no/such/study.toml")
     assert result.returncode == 2 and "study file not found" in result.stderr
+
+
+def test_warnings_on_the_command_line_are_plain_lines(tmp_path, capsys, monkeypatch):
+    # a table longer than a worksheet (limit lowered here) warns while the tables are written
+    from cohort import outputs
+
+    study_file = write_demo(tmp_path / "demo", n_subjects=6)
+    monkeypatch.setattr(outputs, "EXCEL_MAX_ROWS", 50)
+    out = tmp_path / "out"
+    args = ["run", str(study_file), "--out", str(out), "--bootstrap", "0", "--no-figures"]
+    assert main([*args, "--quiet"]) == 0
+    err = capsys.readouterr().err
+    lines = [line for line in err.splitlines() if "more than an Excel worksheet holds" in line]
+    assert lines
+    assert all(line.startswith("cohort: CohortWarning: tables.xlsx: table '") for line in lines)
+    assert "warnings.warn" not in err and "write_tables(" not in err
