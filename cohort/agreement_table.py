@@ -48,8 +48,8 @@ from .units import PARAMETERS
 
 PB_TABLE_MAX_PAIRS = 500_000
 """Rows of more pairs get no Passing-Bablok fit unless ``pb_max_pairs`` is raised: its exact
-slope selection costs about 15 s per row at 1.7 million pairs on a 2-core machine
-(benchmarks/scale.py), and its rank-based interval, which then ignores the clustering, is
+slope selection took 12 to 27 s for one row of 1.7 million pairs on a 2-core machine
+(benchmarks/README.md), and its rank-based interval, which then ignores the clustering, is
 narrow to the point of misleading; Deming and the limits of agreement keep their cluster
 bootstrap at any size."""
 
@@ -401,7 +401,7 @@ def _row(
         cells.update(_nan_cells(_regression_columns("pb", "")))
         remarks.append(
             f"Passing-Bablok not computed: {data.n_pairs:,} pairs exceed pb_max_pairs = "
-            f"{pb_max_pairs:,} (raise it to compute the fit, about 10 s per million pairs)"
+            f"{pb_max_pairs:,} (raise it to compute the fit, 10 to 20 s per million pairs)"
         )
     for prefix, fit in fits.items():
         if data.n_subjects < 2:
