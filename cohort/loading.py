@@ -176,6 +176,9 @@ def _read_delimited(path: Path, delimiter: str) -> pd.DataFrame:
                     )
                 ]
             )
+    plain = _read_plain(text, delimiter) if FAST_PLAIN_CSV else None
+    if plain is not None:
+        return plain
     reader = csv.reader(io.StringIO(text, newline=""), delimiter=delimiter)
     columns: list[str] | None = None
     body: list[list[str]] = []
@@ -228,4 +231,58 @@ def _read_delimited(path: Path, delimiter: str) -> pd.DataFrame:
         raise StudyError([Problem("file-empty", "file has no data rows", file=name)])
     frame = pd.DataFrame(body, columns=columns, dtype=str)
     frame.attrs["rows"] = numbers
+    return frame
+
+
+FAST_PLAIN_CSV = True
+"""Read plain delimited files (:func:`_read_plain`) with pyarrow's parser; the tests switch
+it off to compare with the csv-module path."""
+
+
+def _read_plain(text: str, delimiter: str) -> pd.DataFrame | None:
+    """The frame the csv-module path gives, for a plain file, by pyarrow's CSV parser.
+
+    Plain: no quote character, lines ended by LF or CR LF, every line holding as many
+    delimiters as the header and at least one non-blank cell, and a data row. Then every
+    line is one row and row numbers are line numbers (10 to 20 times faster on millions of
+    rows). Anything else returns None, and the careful path reads the file and reports its
+    problems with their rows.
+    """
+    if '"' in text or text.count("\r") != text.count("\r\n"):
+        return None
+    lines = text.replace("\r\n", "\n").split("\n")
+    if lines and lines[-1] == "":
+        lines.pop()
+    if len(lines) < 2:
+        return None
+    n_cells = lines[0].count(delimiter) + 1
+    for line in lines:
+        if line.count(delimiter) != n_cells - 1 or not line.replace(delimiter, "").strip():
+            return None
+    import pyarrow as pa
+    from pyarrow import csv as pa_csv
+
+    try:
+        table = pa_csv.read_csv(
+            io.BytesIO("\n".join(lines[1:]).encode("utf-8")),
+            read_options=pa_csv.ReadOptions(
+                column_names=[f"c{i}" for i in range(n_cells)], block_size=1 << 26
+            ),
+            parse_options=pa_csv.ParseOptions(
+                delimiter=delimiter, quote_char=False, ignore_empty_lines=False
+            ),
+            convert_options=pa_csv.ConvertOptions(
+                column_types={f"c{i}": pa.string() for i in range(n_cells)},
+                strings_can_be_null=False,
+            ),
+        )
+    except (pa.ArrowInvalid, UnicodeError):
+        return None
+    if table.num_rows != len(lines) - 1:
+        return None
+    header = next(csv.reader([lines[0]], delimiter=delimiter))
+    text_dtype = pd.StringDtype("pyarrow", na_value=np.nan)  # pandas' "str"
+    frame = table.to_pandas(types_mapper={pa.string(): text_dtype}.get)
+    frame.columns = header
+    frame.attrs["rows"] = range(2, len(lines) + 1)
     return frame
