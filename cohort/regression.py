@@ -66,7 +66,10 @@ PB_WEIGHTED_MAX_N = 4000
 
 #: ``_pb_weighted_draws``: resamples located through coarse blocks of all slopes to place
 #: the window of slopes the others are located in; the least padding of that window either
-#: side; the number of coarse blocks.
+#: side; the number of coarse blocks; and c in sqrt(c w) / k, the number of fine blocks of
+#: a window of w slopes with k subjects (c = 400 was the fastest of 40, 400, 4,000 and
+#: 40,000 on six cohort shapes, benchmarks/regression_speed.py; the result does not
+#: depend on any of these).
 _PB_WINDOW_PILOT = 32
 _PB_WINDOW_MIN_PAD = 1024
 _PB_COARSE_BLOCKS = 16
@@ -1196,7 +1199,7 @@ def _pb_weighted_draws(
     # from the first resamples (located through coarse blocks of all slopes). The others are
     # located through fine blocks of that window: block weights are quadratic forms, so only
     # the slopes of the one block holding a rank are weighted one by one. Fine blocks balance
-    # B k^2 per block against B x block size (sqrt(40 w) / k blocks for a window of w). A
+    # B k^2 per block against B x block size (sqrt(c w) / k blocks, c = _PB_FINE_FACTOR). A
     # resample whose ranks fall outside the window is located through coarse blocks, so the
     # result does not depend on the window.
     usable = np.flatnonzero(ok)
