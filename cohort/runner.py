@@ -24,6 +24,7 @@ from pathlib import Path
 from .manifest import build_manifest, write_manifest
 from .methods_text import methods_markdown
 from .outputs import publish, sha256, staging_folder, write_tables
+from .parallel import resolve_workers
 from .pipeline import Analysis, RunOptions, analyse
 from .report import render_report
 from .settings import StudySettings
@@ -112,7 +113,11 @@ def run(
         manifest = build_manifest(
             inputs=inputs,
             settings=study.settings.to_dict(),
-            options={**options.to_dict(), "pseudonymized": pseudonymized},
+            options={
+                **options.to_dict(),
+                "workers_used": resolve_workers(options.workers),
+                "pseudonymized": pseudonymized,
+            },
             started=started,
             finished=_now(),
             warnings=[*analysis.alerts, *analysis.warnings, *(str(w) for w in study.warnings)],

@@ -17,6 +17,7 @@ import pytest
 from cohort.cli import main
 from cohort.demo import write_demo
 from cohort.outputs import OutputExistsError
+from cohort.parallel import resolve_workers
 from cohort.pipeline import options_from_study
 from cohort.runner import run
 from cohort.study import load_study
@@ -74,6 +75,8 @@ def test_manifest_records_inputs_settings_and_versions(demo_run):
     assert manifest["inputs"]["values"]["sha256"] == hashlib.sha256(values.read_bytes()).hexdigest()
     assert manifest["options"]["n_boot"] == B and manifest["options"]["seed"] == 20261202
     assert manifest["packages"]["numpy"] and manifest["settings"]["reference"] == "reference-fit"
+    options = manifest["options"]
+    assert options["workers_used"] == resolve_workers(options["workers"]) >= 1
     acc = manifest["record_accounting"]
     assert acc["records_in"] == acc["used"] + acc["missing"] + acc["excluded"]
 
