@@ -101,11 +101,11 @@ def map_shared(
     inputs: a study, its tables) reaches forked workers through the fork, not by pickling,
     and only the numbers ``i`` and the results are sent between processes."""
     global _SHARED
-    _SHARED = (func, shared)
+    outer, _SHARED = _SHARED, (func, shared)  # a call inside another one restores it after
     try:
         return ordered_map(_call_shared, range(n), workers)
     finally:
-        _SHARED = None
+        _SHARED = outer
 
 
 def _call_shared(index: int):

@@ -7,7 +7,13 @@ import warnings
 
 import pytest
 
-from cohort.parallel import MAX_DEFAULT_WORKERS, can_fork, ordered_map, resolve_workers
+from cohort.parallel import (
+    MAX_DEFAULT_WORKERS,
+    can_fork,
+    map_shared,
+    ordered_map,
+    resolve_workers,
+)
 from cohort.results import NotEstimableWarning
 
 
@@ -52,3 +58,17 @@ def test_worker_counts():
         with pytest.raises(ValueError, match="workers must be a non-negative integer"):
             resolve_workers(bad)
     assert ordered_map(_square_and_pid, [], workers=2) == []
+
+
+def _outer(shared: list[int], index: int) -> list[int]:
+    inner = map_shared(_times, shared[index], 3, workers=1)  # nested: the outer state stays
+    return [*inner, shared[index]]
+
+
+def _times(factor: int, index: int) -> int:
+    return factor * index
+
+
+@pytest.mark.parametrize("workers", [1, 2])
+def test_map_shared_gives_each_call_the_shared_input_and_nests(workers):
+    assert map_shared(_outer, [10, 20], 2, workers=workers) == [[0, 10, 20, 10], [0, 20, 40, 20]]
