@@ -496,19 +496,11 @@ def agreement_table(
     check_options(confidence_level, n_boot)
     if regression_n_boot is None:
         regression_n_boot = n_boot
-    elif (
-        isinstance(regression_n_boot, bool)
-        or not isinstance(regression_n_boot, int | np.integer)
-        or regression_n_boot < 0
-    ):
+    elif not _is_count(regression_n_boot):
         raise ValueError(
             f"regression_n_boot must be a non-negative integer or None, got {regression_n_boot!r}"
         )
-    if (
-        isinstance(pb_max_pairs, bool)
-        or not isinstance(pb_max_pairs, int | np.integer)
-        or pb_max_pairs < 0
-    ):
+    if not _is_count(pb_max_pairs):
         raise ValueError(f"pb_max_pairs must be a non-negative integer, got {pb_max_pairs!r}")
     _check(paired, strata, extra_strata, ratio_parameters, error_ratio)
     options = {
@@ -548,6 +540,11 @@ def agreement_table(
     finally:
         _PROCESS_COUNTS.clear()
     return pd.DataFrame(rows, columns=list(AGREEMENT_COLUMNS))
+
+
+def _is_count(value: object) -> bool:
+    """A non-negative whole number (not a bool)."""
+    return not isinstance(value, bool) and isinstance(value, int | np.integer) and value >= 0
 
 
 _PROCESS_COUNTS: dict[tuple[int, int | None], ResampleCounts] = {}

@@ -1299,7 +1299,7 @@ def make_figures(
         Called with a short text once per figure written (from the worker processes when
         there are several).
     workers
-        Processes drawing the parts of the set (:func:`cohort.parallel.ordered_map`; 0 = one
+        Processes drawing the parts of the set (:func:`cohort.parallel.map_shared`; 0 = one
         per core); the figures and records are the same for any number.
 
     Returns

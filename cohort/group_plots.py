@@ -397,10 +397,8 @@ def _line_collections(
     line_kwargs: dict[str, Any],
 ) -> None:
     """One line collection and one scatter of end points per group (many subjects)."""
-    options = dict(line_kwargs)
-    width = float(options.pop("linewidth", 0.8))
-    size = float(options.pop("markersize", 3.5))
-    alpha = options.pop("alpha", None)
+    options = dict(line_kwargs)  # always holds linewidth, markersize and alpha
+    width, size, alpha = (options.pop(k) for k in ("linewidth", "markersize", "alpha"))
     for level in levels:
         members = subject_group.index[
             subject_group.isna() if level is None else subject_group == level
@@ -420,7 +418,7 @@ def _line_collections(
         ends = ax.scatter(
             np.repeat([0.0, 1.0], ref.size),
             np.concatenate([ref, tst]),
-            s=size**2,
+            s=float(size) ** 2,
             color=colour,
             marker=marker,
             alpha=alpha,

@@ -39,6 +39,7 @@ from .bootstrap import DEFAULT_N_BOOT, DEFAULT_SEED
 from .detection import deceptive_agreement, finding_strata, findings_agreement, missed_findings
 from .findings import FindingsResult, evaluate_findings
 from .groups import study_group_comparison
+from .parallel import resolve_workers
 from .problems import Problem, StudyError, problems_frame
 from .results import CohortWarning
 from .segments import SEGMENTS
@@ -129,7 +130,9 @@ def options_from_study(study: Study, **overrides: Any) -> RunOptions:
                 )
             ]
         )
-    if options.workers < 0:
+    try:
+        resolve_workers(options.workers)
+    except ValueError:
         raise StudyError(
             [
                 Problem(
@@ -139,7 +142,7 @@ def options_from_study(study: Study, **overrides: Any) -> RunOptions:
                     expected="0 (one per core) or a positive number of processes",
                 )
             ]
-        )
+        ) from None
     return options
 
 

@@ -1153,7 +1153,8 @@ def _pb_weighted_draws(
 
     def edge_weights(rows, edges: Sequence[int]) -> np.ndarray:
         """Weight of the slopes before each of the ``edges`` (rows x edges)."""
-        parts = [block_weight(rows, 0, edges[0])]
+        # the weight before the first edge; none before slope 0 (no k x k product for it)
+        parts = [block_weight(rows, 0, edges[0]) if edges[0] else np.zeros(len(c_all[rows]))]
         parts += [block_weight(rows, a, b) for a, b in itertools.pairwise(edges)]
         return np.cumsum(np.stack(parts, axis=1), axis=1)
 
