@@ -38,6 +38,7 @@ def package_versions(names: Iterable[str] = PACKAGES) -> dict[str, str]:
 def build_manifest(
     *,
     inputs: Mapping[str, Path],
+    input_names: Mapping[str, str | None] | None = None,
     settings: Mapping[str, Any],
     options: Mapping[str, Any],
     started: str,
@@ -46,12 +47,22 @@ def build_manifest(
     outputs: Iterable[str],
     accounting: Mapping[str, int],
 ) -> dict[str, Any]:
-    """Everything needed to say what a run was: inputs with SHA-256, settings, versions."""
+    """Everything needed to say what a run was: inputs with SHA-256, settings, versions.
+
+    Inputs are recorded by role with their SHA-256 and size, and by the name in
+    ``input_names`` (relative to the study file; ``None`` in a pseudonymised run): never by
+    absolute path, which can hold a person's name or number.
+    """
+    names = dict(input_names or {})
     return {
         "tool": "cohort",
         "caution": "Research use only; not a diagnostic device. Thresholds need local validation.",
         "inputs": {
-            key: {"path": str(path), "sha256": sha256(path), "bytes": Path(path).stat().st_size}
+            key: {
+                "name": names.get(key, Path(path).name),
+                "sha256": sha256(path),
+                "bytes": Path(path).stat().st_size,
+            }
             for key, path in inputs.items()
         },
         "settings": dict(settings),

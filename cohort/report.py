@@ -449,7 +449,12 @@ def _quality_section(analysis: Analysis) -> str:
 def _provenance(manifest: Mapping[str, Any]) -> str:
     inputs = pd.DataFrame(
         [
-            {"input": k, "path": v["path"], "sha256": v["sha256"], "bytes": v["bytes"]}
+            {
+                "input": k,
+                "name": v["name"] or "not recorded (pseudonymised run)",
+                "sha256": v["sha256"],
+                "bytes": v["bytes"],
+            }
             for k, v in manifest["inputs"].items()
         ]
     )

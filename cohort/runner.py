@@ -112,7 +112,11 @@ def run(
         outputs += ["report.html", "manifest.json"]
         manifest = build_manifest(
             inputs=inputs,
-            settings=study.settings.to_dict(),
+            input_names={
+                k: None if pseudonymized else study.settings.input_name(p)
+                for k, p in inputs.items()
+            },
+            settings=study.settings.to_dict(hide_paths=pseudonymized),
             options={
                 **options.to_dict(),
                 "workers_used": resolve_workers(options.workers),

@@ -35,6 +35,7 @@ given in :attr:`StudySettings.extra` for them to interpret.
 
 from __future__ import annotations
 
+import os
 import tomllib
 from dataclasses import dataclass, field, replace
 from pathlib import Path
@@ -61,6 +62,13 @@ class Checks:
     field_max_abs_hz: float = 2000.0
     """Hz: far beyond myocardial off-resonance at 1.5-3 T (tens to a few hundred Hz;
     common practice); larger values are unit or export errors."""
+    implausible: str = "refuse"
+    """What an implausible value does: ``"refuse"`` the study (an error listing each one) or
+    ``"exclude"`` the value (listed in the exclusions with its reason, used nowhere)."""
+    ff_percent_confirmed: bool = False
+    """``units.ff = "percent"`` with every fat fraction within 0-1 is refused as a likely
+    fraction; ``true`` confirms that the values really are percent (a cohort with almost no
+    fat) and turns the refusal into a warning."""
 
 
 @dataclass(frozen=True)
@@ -79,19 +87,41 @@ class StudySettings:
     field_referencing: str = "subject-median"
     remote_segments: tuple[int, ...] = ()
     checks: Checks = field(default_factory=Checks)
+    identifying_columns: tuple[str, ...] = ()
+    """Extra input columns whose cells identify a person (e.g. a hospital number): with
+    pseudonymisation every cell of them is replaced by its keyed code."""
     study_file: Path | None = None
     extra: dict[str, Any] = field(default_factory=dict)
 
     def with_options(self, **changes: Any) -> StudySettings:
         return replace(self, **changes)
 
-    def to_dict(self) -> dict[str, Any]:
-        """Resolved settings as plain data (for the manifest and the report)."""
+    def input_name(self, path: Path | None) -> str | None:
+        """How an output names an input file: relative to the study file's folder (POSIX
+        separators), or its file name alone without a study file; never an absolute path."""
+        if path is None:
+            return None
+        path = Path(path)
+        if self.study_file is None:
+            return path.name
+        base = Path(self.study_file).resolve().parent
+        return Path(os.path.relpath(path.resolve(), base)).as_posix()
+
+    def to_dict(self, *, hide_paths: bool = False) -> dict[str, Any]:
+        """Resolved settings as plain data (for the manifest and the report).
+
+        Input files are named by :meth:`input_name`; with ``hide_paths`` (pseudonymised runs)
+        not at all, since a file or folder name can hold an identifier.
+        """
+
+        def name(path: Path | None) -> str | None:
+            return "(not recorded: pseudonymised run)" if hide_paths else self.input_name(path)
+
         return {
             "title": self.title,
-            "study_file": str(self.study_file) if self.study_file else None,
-            "values": str(self.values),
-            "subjects": str(self.subjects),
+            "study_file": name(self.study_file) if self.study_file else None,
+            "values": name(self.values),
+            "subjects": name(self.subjects),
             "reference": self.reference,
             "segment_model": self.segment_model,
             "groups": list(self.groups),
@@ -102,6 +132,7 @@ class StudySettings:
                 "remote_segments": list(self.remote_segments),
             },
             "checks": vars(self.checks).copy(),
+            "identifying_columns": list(self.identifying_columns),
             **{k: v for k, v in self.extra.items()},
         }
 
