@@ -73,6 +73,10 @@ class Problem:
     value: str | None = None
     expected: str | None = None
     severity: str = "error"
+    subject: str | None = None
+    """The subject the problem concerns, when it concerns one (pseudonymisation replaces
+    this field whole; detail texts therefore never embed a subject ID)."""
+    method: str | None = None
 
     def __post_init__(self) -> None:
         if self.code not in CATALOGUE:
@@ -91,6 +95,10 @@ class Problem:
             parts.append(f"row {self.row}")
         if self.column:
             parts.append(f"column '{self.column}'")
+        if self.subject is not None:
+            parts.append(f"subject '{self.subject}'")
+        if self.method is not None:
+            parts.append(f"method '{self.method}'")
         return ", ".join(parts)
 
     def __str__(self) -> str:
@@ -148,9 +156,33 @@ def format_problems(problems: list[Problem], limit: int = MAX_LISTED) -> str:
 
 def problems_frame(problems: list[Problem]) -> pd.DataFrame:
     """Problems as a tidy table (one row each), for reports and exports."""
-    columns = ["severity", "code", "title", "file", "row", "column", "value", "expected", "detail"]
+    columns = [
+        "severity",
+        "code",
+        "title",
+        "file",
+        "row",
+        "column",
+        "subject",
+        "method",
+        "value",
+        "expected",
+        "detail",
+    ]
     rows = [
-        [p.severity, p.code, p.title, p.file, p.row, p.column, p.value, p.expected, p.detail]
+        [
+            p.severity,
+            p.code,
+            p.title,
+            p.file,
+            p.row,
+            p.column,
+            p.subject,
+            p.method,
+            p.value,
+            p.expected,
+            p.detail,
+        ]
         for p in problems
     ]
     frame = pd.DataFrame(rows, columns=columns)
