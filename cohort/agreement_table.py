@@ -40,21 +40,19 @@ from .bootstrap import (
 )
 from .concordance import CCC_ANALYSIS, ICC_ANALYSIS
 from .correlation import PEARSON_ANALYSIS, RM_CORR_ANALYSIS, SPEARMAN_ANALYSIS
+from .options import PB_MAX_PAIRS, STRATA
 from .parallel import ordered_map
 from .regression import deming, passing_bablok
 from .results import NotEstimableWarning
 from .segments import RINGS, TERRITORIES
 from .units import PARAMETERS
 
-PB_TABLE_MAX_PAIRS = 500_000
+PB_TABLE_MAX_PAIRS = PB_MAX_PAIRS
 """Rows of more pairs get no Passing-Bablok fit unless ``pb_max_pairs`` is raised: its exact
 slope selection took 12 to 27 s for one row of 1.7 million pairs on a 2-core machine
 (benchmarks/README.md), and its rank-based interval, which then ignores the clustering, is
 narrow to the point of misleading; Deming and the limits of agreement keep their cluster
-bootstrap at any size."""
-
-STRATA: tuple[str, ...] = ("all", "group", "ring", "territory")
-"""Strata the table knows: the whole cohort and the levels of each contract column."""
+bootstrap at any size. The number lives in :mod:`cohort.options`."""
 
 _BOOT = "subject cluster bootstrap percentile interval"
 

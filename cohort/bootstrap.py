@@ -31,13 +31,10 @@ import pandas as pd
 from numpy.typing import ArrayLike
 from scipy import stats
 
+from .options import DEFAULT_N_BOOT, DEFAULT_SEED
 from .results import ConfidenceInterval
 
-DEFAULT_N_BOOT = 2000
-"""Bootstrap resamples by default (common practice for percentile intervals)."""
-
-DEFAULT_SEED = 20261202
-"""Seed used when none is given, so that a report can be reproduced exactly."""
+__all__ = ["DEFAULT_N_BOOT", "DEFAULT_SEED"]  # the defaults live in cohort.options
 
 _CHUNK_ELEMENTS = 4_000_000
 """Resamples per chunk times subjects: bounds the count matrix to about 32 MB."""

@@ -4,24 +4,10 @@
 ``run(...)`` loads, analyses and writes the output folder atomically (see
 :mod:`cohort.outputs`). The command line, the report and notebooks call these.
 
-Options come from the ``[analysis]`` table of the study file (all optional)::
-
-    [analysis]
-    seed = 20261202            # bootstrap seed
-    n_boot = 2000              # subject cluster bootstrap resamples
-    confidence_level = 0.95
-    strata = ["all", "group", "ring", "territory"]
-    ratio_parameters = ["r2star"]   # also reported on the ratio (log) scale
-    error_ratio = 1.0          # Deming: var(error test) / var(error reference)
-    regression_limits = false  # Bland & Altman 1999 regression-based limits
-    correction = "holm"        # multiple testing: "holm" or "fdr_bh"
-    ccc_min = 0.9              # deceptive-agreement warning: CCC at or above ...
-    sensitivity_max = 0.8      # ... while sensitivity for a finding is below this
-    bias_ratio = 2.0           # ... or bias in positive segments this many times that elsewhere
-    pb_max_pairs = 500000      # rows with more pairs get no Passing-Bablok fit (note says so)
-    workers = 0                # processes (0 = one per core, at most 4); results unchanged
-
-Command-line options (``--seed``, ``--bootstrap``, ``--workers``) override the study file.
+Options come from the ``[analysis]`` table of the study file (checked when the file is read;
+format and rules in :mod:`cohort.options`); :class:`RunOptions` and :func:`options_from_study`
+live there and are re-exported here. Command-line options (``--seed``, ``--bootstrap``,
+``--workers``) override the study file and obey the same rules.
 """
 
 from __future__ import annotations
@@ -29,18 +15,17 @@ from __future__ import annotations
 import time
 import warnings
 from collections.abc import Callable, Mapping
-from dataclasses import asdict, dataclass, field, fields, replace
+from dataclasses import dataclass, field
 from typing import Any
 
 import pandas as pd
 
-from .agreement_table import PB_TABLE_MAX_PAIRS, agreement_table
-from .bootstrap import DEFAULT_N_BOOT, DEFAULT_SEED
+from .agreement_table import agreement_table
 from .detection import deceptive_agreement, finding_strata, findings_agreement, missed_findings
 from .findings import FindingsResult, evaluate_findings
 from .groups import study_group_comparison
-from .parallel import resolve_workers
-from .problems import Problem, StudyError, problems_frame
+from .options import RunOptions, options_from_study
+from .problems import problems_frame
 from .results import CohortWarning
 from .segments import SEGMENTS
 from .study import Study
@@ -48,102 +33,6 @@ from .swaps import swap_screen_with
 from .thresholds import parse_findings, parse_swap_options, thresholds_table
 
 Progress = Callable[[str], None]
-
-
-@dataclass(frozen=True)
-class RunOptions:
-    """Analysis options; every one is recorded in the manifest and the methods text."""
-
-    seed: int = DEFAULT_SEED
-    n_boot: int = DEFAULT_N_BOOT
-    confidence_level: float = 0.95
-    strata: tuple[str, ...] = ("all", "group", "ring", "territory")
-    ratio_parameters: tuple[str, ...] = ("r2star",)
-    error_ratio: float = 1.0
-    regression_limits: bool = False
-    correction: str = "holm"
-    ccc_min: float = 0.9
-    sensitivity_max: float = 0.8
-    bias_ratio: float = 2.0
-    pb_max_pairs: int = PB_TABLE_MAX_PAIRS
-    figures: bool = True
-    workers: int = 0
-    """Processes for the agreement rows and the figures (0 = one per core, at most 4); the
-    results are the same for any number (:mod:`cohort.parallel`)."""
-
-    def to_dict(self) -> dict[str, Any]:
-        return {k: list(v) if isinstance(v, tuple) else v for k, v in asdict(self).items()}
-
-
-def options_from_study(study: Study, **overrides: Any) -> RunOptions:
-    """Options of the study file's ``[analysis]`` table, then ``overrides`` (not None)."""
-    table = dict(study.settings.extra.get("analysis", {}))
-    known = {f.name: f for f in fields(RunOptions)}
-    problems = []
-    values: dict[str, Any] = {}
-    for key, value in table.items():
-        if key not in known or key == "figures":
-            problems.append(
-                Problem(
-                    "study-option",
-                    f"unknown key '{key}' in [analysis]",
-                    file=str(study.settings.study_file),
-                    value=key,
-                    expected=f"one of {sorted(k for k in known if k != 'figures')}",
-                )
-            )
-            continue
-        default = getattr(RunOptions(), key)
-        try:
-            if isinstance(default, tuple):
-                if isinstance(value, str) or not isinstance(value, list):
-                    raise TypeError("a list")
-                values[key] = tuple(str(v) for v in value)
-            elif isinstance(default, bool):
-                if not isinstance(value, bool):
-                    raise TypeError("true or false")
-                values[key] = value
-            else:
-                values[key] = type(default)(value)
-        except (TypeError, ValueError) as exc:
-            problems.append(
-                Problem(
-                    "study-option",
-                    f"[analysis] {key} is not valid",
-                    file=str(study.settings.study_file),
-                    value=str(value),
-                    expected=str(exc) or f"like {default!r}",
-                )
-            )
-    if problems:
-        raise StudyError(problems)
-    values.update({k: v for k, v in overrides.items() if v is not None})
-    options = replace(RunOptions(), **values)
-    if options.correction not in ("holm", "fdr_bh"):
-        raise StudyError(
-            [
-                Problem(
-                    "study-option",
-                    "[analysis] correction is not valid",
-                    value=options.correction,
-                    expected="'holm' or 'fdr_bh'",
-                )
-            ]
-        )
-    try:
-        resolve_workers(options.workers)
-    except ValueError:
-        raise StudyError(
-            [
-                Problem(
-                    "study-option",
-                    "[analysis] workers is not valid",
-                    value=str(options.workers),
-                    expected="0 (one per core) or a positive number of processes",
-                )
-            ]
-        ) from None
-    return options
 
 
 @dataclass
@@ -190,8 +79,9 @@ def analyse(
         timings[name] = time.perf_counter() - start
         return result
 
-    definitions = parse_findings(study.settings.extra.get("findings"))
-    swap_options = parse_swap_options(study.settings.extra.get("findings"))
+    source = study.settings.input_name(study.settings.study_file) or "study settings"
+    definitions = parse_findings(study.settings.extra.get("findings"), file=source)
+    swap_options = parse_swap_options(study.settings.extra.get("findings"), file=source)
     findings = step(
         "findings",
         "classifying findings",

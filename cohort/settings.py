@@ -10,8 +10,9 @@ A study file has these tables (all keys are optional except ``values``, ``subjec
     reference = "reference-fit"
     segment_model = "aha17"            # or "aha16"
     groups = ["control", "acute", "chronic"]   # order of groups in every output
+    identifying_columns = ["hospital_number"]  # replaced by keyed codes when pseudonymised
 
-    [study.group_labels]                 # optional display labels
+    [study.group_labels]                 # optional display labels of declared groups
     control = "Healthy controls"
 
     [units]
@@ -23,30 +24,49 @@ A study file has these tables (all keys are optional except ``values``, ``subjec
     remote_segments = [1, 2, 7, 8]       # with referencing = "remote"
 
     [checks]
-    ff_below_zero_tolerance = 5.0        # percentage points below 0 accepted as noise
-    ff_above_100_tolerance = 5.0
-    r2star_max = 1000.0                  # 1/s; above this is implausible in myocardium
-    t2star_r2star_tolerance = 0.01       # relative; T2* and R2* both given must agree
-    field_max_abs_hz = 2000.0            # Hz; larger field offsets are implausible
+    ff_below_zero_tolerance = 5.0        # percentage points below 0 accepted as noise (0-100)
+    ff_above_100_tolerance = 5.0         # (0-100)
+    r2star_max = 1000.0                  # 1/s (> 0); above this is implausible in myocardium
+    t2star_r2star_tolerance = 0.01       # relative (0-1); T2* and R2* both given must agree
+    field_max_abs_hz = 2000.0            # Hz (> 0); larger field offsets are implausible
+    implausible = "refuse"               # or "exclude"
+    ff_percent_confirmed = false         # true: fat fractions all within 0-1 really are percent
 
-Tables read by later stages (``[analysis]``, ``[findings]``, ``[report]``) are kept as
-given in :attr:`StudySettings.extra` for them to interpret.
+Tables ``[analysis]`` (:mod:`cohort.options`) and ``[findings]`` (:mod:`cohort.thresholds`)
+are checked here too and kept as given in :attr:`StudySettings.extra` for the analysis.
+Every table, key, type and range is in :data:`STUDY_FILE`; T2* is always read in ms and R2*
+in 1/s, so ``[units]`` has no key for them.
 """
 
 from __future__ import annotations
 
 import os
 import tomllib
+from collections.abc import Mapping
 from dataclasses import dataclass, field, replace
 from pathlib import Path
+from types import MappingProxyType
 from typing import Any
 
+from .options import (
+    ANALYSIS_SCHEMA,
+    Rule,
+    TableSchema,
+    check_document,
+    choice,
+    did_you_mean,
+    flag,
+    integers,
+    labels,
+    number,
+    study_problem,
+    text,
+    texts,
+)
 from .problems import Problem, StudyError
-from .segments import MODELS
-from .units import FF_UNITS, FIELD_UNITS
-
-FIELD_REFERENCING = ("none", "subject-median", "remote")
-LATER_TABLES = ("analysis", "findings", "report")
+from .segments import MODELS, SEGMENTS
+from .thresholds import FINDINGS_SCHEMA
+from .units import FF_UNITS, FIELD_UNITS, R2STAR_UNITS, T2STAR_UNITS
 
 
 @dataclass(frozen=True)
@@ -137,95 +157,210 @@ class StudySettings:
         }
 
 
-_KNOWN = {
-    "study": {
-        "title",
-        "values",
-        "subjects",
-        "reference",
-        "segment_model",
-        "groups",
-        "group_labels",
-    },
-    "units": {"ff", "field", "t2star", "r2star"},
-    "field": {"referencing", "remote_segments"},
-    "checks": set(Checks.__dataclass_fields__),
-}
+FIELD_REFERENCING = ("none", "subject-median", "remote")
+IMPLAUSIBLE = ("refuse", "exclude")
+"""What ``[checks] implausible`` may say (see :attr:`Checks.implausible`)."""
+
+CHECK_RULES: MappingProxyType[str, Rule] = MappingProxyType(
+    {
+        "ff_below_zero_tolerance": number(0.0, 100.0, note=" (percentage points)"),
+        "ff_above_100_tolerance": number(0.0, 100.0, note=" (percentage points)"),
+        "r2star_max": number(0.0, open_=True, note=" (1/s)"),
+        "t2star_r2star_tolerance": number(0.0, 1.0, note=" (relative)"),
+        "field_max_abs_hz": number(0.0, open_=True, note=" (Hz)"),
+        "implausible": choice(IMPLAUSIBLE),
+        "ff_percent_confirmed": flag(),
+    }
+)
+"""Rules of the ``[checks]`` keys: every field of :class:`Checks` (a test keeps them equal)."""
+
+STUDY_RULES: MappingProxyType[str, Rule] = MappingProxyType(
+    {
+        "title": text(),
+        "values": text(),
+        "subjects": text(),
+        "reference": text(),
+        "segment_model": choice(tuple(MODELS)),
+        "groups": texts(),
+        "group_labels": labels(),
+        "identifying_columns": texts(),
+    }
+)
+UNITS_RULES: MappingProxyType[str, Rule] = MappingProxyType(
+    {"ff": choice(FF_UNITS), "field": choice(FIELD_UNITS)}
+)
+UNITS_FIXED: MappingProxyType[str, str] = MappingProxyType(
+    {
+        "t2star": f"T2* is always read in {T2STAR_UNITS[0]} (parameter 't2star')",
+        "r2star": f"R2* is always read in {R2STAR_UNITS[0]} (parameter 'r2star')",
+    }
+)
+"""Unit keys that are known but have no choice: refused with the reason."""
+FIELD_RULES: MappingProxyType[str, Rule] = MappingProxyType(
+    {
+        "referencing": choice(FIELD_REFERENCING),
+        "remote_segments": integers(min(SEGMENTS), max(SEGMENTS), min_items=0),
+    }
+)
 
 
-def _problem(path: Path, detail: str, value: object = None, expected: str | None = None) -> Problem:
-    return Problem(
-        "study-option",
-        detail,
-        file=str(path),
-        value=None if value is None else str(value),
-        expected=expected,
-    )
+def _check_study(
+    table: Mapping[str, Any], bad: frozenset[str], file: str, document: Mapping[str, Any]
+) -> list[Problem]:
+    """Display labels name declared groups (when groups are declared)."""
+    if "groups" in bad or "group_labels" in bad or not table.get("groups"):
+        return []
+    groups = [g.strip() for g in table["groups"]]
+    return [
+        study_problem(
+            file,
+            f"[study.group_labels] {name} labels a group that is not declared in [study] "
+            f"groups{did_you_mean(name, groups)}",
+            name,
+            f"one of {groups}",
+        )
+        for name in table.get("group_labels", {})
+        if name not in groups
+    ]
+
+
+def _check_field(
+    table: Mapping[str, Any], bad: frozenset[str], file: str, document: Mapping[str, Any]
+) -> list[Problem]:
+    """Remote referencing needs remote segments, and they are segments of the model."""
+    problems: list[Problem] = []
+    study = document.get("study")
+    model_name = study.get("segment_model", "aha17") if isinstance(study, Mapping) else "aha17"
+    model = MODELS.get(model_name) if isinstance(model_name, str) else None
+    remote = [] if "remote_segments" in bad else list(table.get("remote_segments", []))
+    if model is not None and any(s not in model for s in remote):
+        problems.append(
+            study_problem(
+                file,
+                f"[field] remote_segments names a segment outside the model '{model_name}'",
+                remote,
+                f"segment numbers of {model_name}",
+            )
+        )
+    if table.get("referencing") == "remote" and not remote and "remote_segments" not in bad:
+        problems.append(
+            study_problem(
+                file, "[field] referencing = 'remote' needs remote_segments", None,
+                "a list of segment numbers",
+            )
+        )  # fmt: skip
+    return problems
+
+
+STUDY_FILE: MappingProxyType[str, TableSchema] = MappingProxyType(
+    {
+        "study": TableSchema(
+            STUDY_RULES, required=("values", "subjects", "reference"), check=_check_study
+        ),
+        "units": TableSchema(UNITS_RULES, fixed=UNITS_FIXED),
+        "field": TableSchema(FIELD_RULES, check=_check_field),
+        "checks": TableSchema(CHECK_RULES),
+        "analysis": ANALYSIS_SCHEMA,
+        "findings": FINDINGS_SCHEMA,
+    }
+)
+"""Every table a study file may hold, with the rules of its keys: the one place where the
+study file's format is checked (:func:`cohort.options.check_document`)."""
+LATER_TABLES = ("analysis", "findings")
+"""Tables interpreted by the analysis (kept in :attr:`StudySettings.extra`)."""
+
+
+def _unreadable(path: Path, detail: str) -> StudyError:
+    return StudyError([Problem("file-unreadable", detail, file=str(path))])
+
+
+def _read_text(path: Path) -> str:
+    """The text of a study file; StudyError if it is missing, a folder, binary or not UTF-8."""
+    if not path.exists():
+        raise StudyError([Problem("file-missing", "study file not found", file=str(path))])
+    if path.is_dir():
+        raise _unreadable(path, "is a folder, not a study file")
+    try:
+        raw = path.read_bytes()
+    except OSError as exc:
+        raise _unreadable(path, f"study file cannot be read: {exc.strerror or exc}") from None
+    if b"\x00" in raw:
+        raise _unreadable(path, "is a binary file, not a study file (TOML text)")
+    try:
+        return raw.decode("utf-8-sig")
+    except UnicodeDecodeError as exc:
+        raise _unreadable(
+            path, f"study file is not UTF-8 text (byte {exc.start}); save it as UTF-8"
+        ) from None
 
 
 def read_study_file(path: str | Path) -> StudySettings:
-    """Read and check a ``study.toml``; raise :class:`StudyError` listing every problem."""
+    """Read and check a ``study.toml``: every table and key, at once.
+
+    Raises :class:`StudyError` listing every problem of every table (unknown tables and keys
+    with a did-you-mean hint, wrong types, values out of range; see :data:`STUDY_FILE`).
+    """
     path = Path(path)
-    if not path.is_file():
-        raise StudyError([Problem("file-missing", "study file not found", file=str(path))])
     try:
-        data = tomllib.loads(path.read_text(encoding="utf-8-sig"))
-    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
+        data = tomllib.loads(_read_text(path))
+    except tomllib.TOMLDecodeError as exc:
         raise StudyError(
             [Problem("study-file", f"not valid TOML: {exc}", file=str(path))]
         ) from None
-    problems: list[Problem] = []
-    for table, content in data.items():
-        if table in LATER_TABLES:
-            continue
-        if table not in _KNOWN:
-            problems.append(
-                _problem(path, f"unknown table [{table}]", table, f"one of {sorted(_KNOWN)}")
-            )
-            continue
-        if not isinstance(content, dict):
-            problems.append(_problem(path, f"[{table}] must be a table", content))
-            continue
-        for key in content:
-            if key not in _KNOWN[table]:
-                problems.append(
-                    _problem(
-                        path,
-                        f"unknown key '{key}' in [{table}]",
-                        key,
-                        f"one of {sorted(_KNOWN[table])}",
-                    )
-                )
-    study = data.get("study", {}) if isinstance(data.get("study", {}), dict) else {}
-    for key in ("values", "subjects", "reference"):
-        if not isinstance(study.get(key), str) or not study.get(key, "").strip():
-            problems.append(
-                _problem(path, f"[study] needs '{key}'", study.get(key), "a text value")
-            )
+    problems = check_document(data, STUDY_FILE, str(path))
     if problems:
         raise StudyError(problems)
-    base = path.parent.resolve()
-    units = data.get("units", {})
-    fieldopts = data.get("field", {})
-    checks = data.get("checks", {})
-    settings = build_settings(
-        values=base / study["values"],
-        subjects=base / study["subjects"],
-        reference=study["reference"],
+    return _settings(
+        data,
+        base=path.parent.resolve(),
+        study_file=path.resolve(),
+        extra={k: data[k] for k in LATER_TABLES if k in data},
+    )
+
+
+def _settings(
+    document: Mapping[str, Any],
+    *,
+    base: Path | None,
+    study_file: Path | None,
+    extra: dict[str, Any],
+) -> StudySettings:
+    """:class:`StudySettings` of a checked document (paths relative to ``base``)."""
+    study = document["study"]
+    units = document.get("units", {})
+    fieldopts = document.get("field", {})
+    checks = {
+        k: float(v) if CHECK_RULES[k].kind == "number" else v
+        for k, v in document.get("checks", {}).items()
+    }
+
+    def where(name: str) -> Path:
+        return base / name if base is not None else Path(name)
+
+    return StudySettings(
+        values=where(study["values"]),
+        subjects=where(study["subjects"]),
+        reference=study["reference"].strip(),
         title=study.get("title", "Untitled study"),
         segment_model=study.get("segment_model", "aha17"),
-        groups=study.get("groups", ()),
-        group_labels=study.get("group_labels", {}),
+        groups=tuple(g.strip() for g in study.get("groups", ())),
+        group_labels={str(k): str(v) for k, v in study.get("group_labels", {}).items()},
         ff_unit=units.get("ff", "percent"),
         field_unit=units.get("field", "Hz"),
         field_referencing=fieldopts.get("referencing", "subject-median"),
-        remote_segments=fieldopts.get("remote_segments", ()),
-        checks=checks,
-        study_file=path.resolve(),
-        extra={k: data[k] for k in LATER_TABLES if k in data},
-        source=str(path),
+        remote_segments=tuple(int(s) for s in fieldopts.get("remote_segments", ())),
+        checks=Checks(**checks),
+        identifying_columns=tuple(c.strip() for c in study.get("identifying_columns", ())),
+        study_file=study_file,
+        extra=extra,
     )
-    return settings
+
+
+def _number_text(value: object) -> object:
+    """Segment numbers given as text (flags) as integers; anything else unchanged."""
+    if isinstance(value, str) and value.strip().isdigit():
+        return int(value)
+    return value
 
 
 def build_settings(
@@ -242,72 +377,43 @@ def build_settings(
     field_referencing: str = "subject-median",
     remote_segments: Any = (),
     checks: Any = None,
+    identifying_columns: Any = (),
     study_file: Path | None = None,
     extra: dict[str, Any] | None = None,
     source: str = "command line",
 ) -> StudySettings:
-    """Check option values and build :class:`StudySettings` (used by the file and the flags)."""
-    where = Path(source)
-    problems: list[Problem] = []
+    """Check option values and build :class:`StudySettings` (the flag form, or a notebook).
 
-    def choice(name: str, value: object, allowed: tuple[str, ...]) -> None:
-        if value not in allowed:
-            problems.append(
-                _problem(where, f"'{name}' is not valid", value, f"one of {list(allowed)}")
-            )
-
-    choice("segment_model", segment_model, tuple(MODELS))
-    choice("units.ff", ff_unit, FF_UNITS)
-    choice("units.field", field_unit, FIELD_UNITS)
-    choice("field.referencing", field_referencing, FIELD_REFERENCING)
-    if isinstance(groups, str) or not all(isinstance(g, str) and g.strip() for g in groups):
-        problems.append(
-            _problem(where, "'groups' must be a list of names", groups, "a list of text")
-        )
-        groups = ()
-    groups = tuple(g.strip() for g in groups)
-    if len(set(groups)) != len(groups):
-        problems.append(_problem(where, "'groups' names a group twice", list(groups)))
-    labels = dict(group_labels or {})
-    remote: tuple[int, ...] = ()
-    try:
-        remote = tuple(int(s) for s in remote_segments)
-    except (TypeError, ValueError):
-        problems.append(
-            _problem(where, "'remote_segments' must be segment numbers", remote_segments)
-        )
-    model = MODELS.get(segment_model)
-    if model is not None and any(s not in model for s in remote):
-        problems.append(
-            _problem(where, "'remote_segments' names a segment outside the model", list(remote))
-        )
-    if field_referencing == "remote" and not remote:
-        problems.append(
-            _problem(where, "field.referencing = 'remote' needs 'remote_segments'", None)
-        )
-    check_values = Checks()
-    if checks:
-        try:
-            check_values = Checks(**{k: float(v) for k, v in dict(checks).items()})
-        except (TypeError, ValueError) as exc:
-            problems.append(_problem(where, f"[checks] is not valid: {exc}", checks))
-    if not isinstance(reference, str) or not reference.strip():
-        problems.append(_problem(where, "a reference method must be named", reference))
+    The values obey the rules of the study file (:data:`STUDY_FILE`); problems are located
+    at ``source`` and raised together as one :class:`StudyError`.
+    """
+    if isinstance(checks, Checks):
+        checks = vars(checks)
+    if isinstance(remote_segments, list | tuple):
+        remote_segments = [_number_text(s) for s in remote_segments]
+    study: dict[str, Any] = {
+        "title": title,
+        "values": str(values) if isinstance(values, Path) else values,
+        "subjects": str(subjects) if isinstance(subjects, Path) else subjects,
+        "reference": reference,
+        "segment_model": segment_model,
+        "groups": list(groups) if isinstance(groups, tuple) else groups,
+        "identifying_columns": (
+            list(identifying_columns)
+            if isinstance(identifying_columns, tuple)
+            else identifying_columns
+        ),
+    }
+    if group_labels:
+        study["group_labels"] = group_labels
+    document: dict[str, Any] = {
+        "study": study,
+        "units": {"ff": ff_unit, "field": field_unit},
+        "field": {"referencing": field_referencing, "remote_segments": remote_segments},
+        "checks": dict(checks or {}),
+        **dict(extra or {}),
+    }
+    problems = check_document(document, STUDY_FILE, source)
     if problems:
         raise StudyError(problems)
-    return StudySettings(
-        values=Path(values),
-        subjects=Path(subjects),
-        reference=reference.strip(),
-        title=str(title),
-        segment_model=segment_model,
-        groups=groups,
-        group_labels={str(k): str(v) for k, v in labels.items()},
-        ff_unit=ff_unit,
-        field_unit=field_unit,
-        field_referencing=field_referencing,
-        remote_segments=remote,
-        checks=check_values,
-        study_file=study_file,
-        extra=dict(extra or {}),
-    )
+    return _settings(document, base=None, study_file=study_file, extra=dict(extra or {}))

@@ -65,6 +65,8 @@ Study file format (``[findings]`` table of ``study.toml``; every key optional)::
     [findings.field]                     # the optional field finding, with its defaults
     absolute_value = true                # compare |value| (field is signed)
 
+The rules of every key (types, ranges, allowed words) are :data:`FINDINGS_RULES` and
+:data:`FINDING_RULES`; :mod:`cohort.settings` checks the table when the study file is read.
 Canonical units: ff in %, r2star in 1/s, field in Hz (see :mod:`cohort.units`). Derivation
 rules: ``storey-2007`` (r2star, 1.5 T -> 3 T) and ``b0-linear`` (field, Hz proportional to
 B0, 1.5 T -> 3 T).
@@ -80,6 +82,22 @@ from typing import Any
 
 import pandas as pd
 
+from .options import (
+    Rule,
+    TableSchema,
+    check_table,
+    choice,
+    did_you_mean,
+    either,
+    flag,
+    integer,
+    integers,
+    is_number,
+    number,
+    study_problem,
+    text,
+    texts,
+)
 from .problems import Problem, StudyError
 from .segments import SEGMENTS
 from .units import PARAMETERS
@@ -375,172 +393,114 @@ class SwapOptions:
     magnitude_limit: float = MAGNITUDE_ONLY_FF_LIMIT
 
 
-_TOP_KEYS = ("use_defaults", "magnitude_only_methods", "swap_margin")
-_FINDING_KEYS = (
-    "parameter", "direction", "inclusive", "kind", "thresholds", "threshold", "derive",
-    "derived", "k", "remote_segments", "min_segments", "absolute_value", "label", "source",
-    "enabled",
-)  # fmt: skip
+def _thresholds_rule() -> Rule:
+    def accepts(value: object) -> bool:
+        if not isinstance(value, Mapping) or not value:
+            return False
+        for b0_text, threshold in value.items():
+            try:
+                b0 = float(b0_text)
+            except ValueError:
+                return False
+            if not (math.isfinite(b0) and b0 > 0) or not is_number(threshold):
+                return False
+        return True
 
-
-def _problem(detail: str, value: object = None, expected: str | None = None) -> Problem:
-    return Problem(
-        "study-option",
-        detail,
-        file="study.toml [findings]",
-        value=None if value is None else repr(value),
-        expected=expected,
+    return Rule(
+        'a table of field strength (tesla, as text) = finite number, e.g. { "1.5" = 50.0 }',
+        accepts,
+        "table",
     )
 
 
-def _number(value: object) -> float | None:
-    if isinstance(value, bool) or not isinstance(value, int | float):
-        return None
-    return float(value)
+FINDINGS_RULES: MappingProxyType[str, Rule] = MappingProxyType(
+    {
+        "use_defaults": flag(),
+        "magnitude_only_methods": texts(),
+        "swap_margin": number(0.0, 100.0, note=" (percentage points)"),
+    }
+)
+"""Rules of the keys of ``[findings]`` itself (format in the module docstring)."""
+
+FINDING_RULES: MappingProxyType[str, Rule] = MappingProxyType(
+    {
+        "parameter": choice(tuple(PARAMETERS)),
+        "direction": choice(DIRECTIONS),
+        "inclusive": flag(),
+        "kind": choice(KINDS),
+        "thresholds": _thresholds_rule(),
+        "threshold": number(),
+        "derive": either(
+            choice((*DERIVATIONS, "none")), Rule("false", lambda v: v is False, "bool")
+        ),
+        "derived": flag(),
+        "k": number(0.0, note=" (SDs above or below the remote mean)"),
+        "remote_segments": either(
+            choice((OUTSIDE_CULPRIT,)), integers(min(SEGMENTS), max(SEGMENTS))
+        ),
+        "min_segments": integer(1, len(SEGMENTS)),
+        "absolute_value": flag(),
+        "label": text(),
+        "source": text(),
+        "enabled": flag(),
+    }
+)
+"""Rules of the keys of a finding table ``[findings.<name>]``."""
 
 
-def _parse_finding(
-    name: str, table: Mapping[str, Any], problems: list[Problem]
+def _finding(
+    name: str, table: Mapping[str, Any], file: str, problems: list[Problem]
 ) -> FindingDefinition | None:
+    """The definition of a finding table whose keys are valid, or None with its problems."""
     where = f"[findings.{name}]"
-    n_before = len(problems)
-    for key in table:
-        if key not in _FINDING_KEYS:
-            problems.append(
-                _problem(f"unknown key '{key}' in {where}", key, f"one of {list(_FINDING_KEYS)}")
-            )
     base = BUILT_IN.get(name)
-    changes: dict[str, Any] = {}
-
-    def choice(key: str, allowed: tuple[str, ...]) -> None:
-        if key in table:
-            if table[key] not in allowed:
-                problems.append(
-                    _problem(f"'{key}' in {where} is not valid", table[key], f"one of {allowed}")
-                )
-            else:
-                changes[key] = table[key]
-
-    def flag(key: str, target: str | None = None) -> None:
-        if key in table:
-            if not isinstance(table[key], bool):
-                problems.append(_problem(f"'{key}' in {where} must be true or false", table[key]))
-            else:
-                changes[target or key] = table[key]
-
-    choice("parameter", tuple(PARAMETERS))
-    choice("direction", DIRECTIONS)
-    choice("kind", KINDS)
-    flag("inclusive")
-    flag("absolute_value")
-    flag("derived")
-    for key in ("label", "source"):
-        if key in table:
-            if not isinstance(table[key], str):
-                problems.append(_problem(f"'{key}' in {where} must be text", table[key]))
-            else:
-                changes[key] = table[key]
+    changes: dict[str, Any] = {
+        k: table[k]
+        for k in ("parameter", "direction", "kind", "inclusive", "absolute_value", "derived",
+                  "label", "source", "k", "min_segments")
+        if k in table
+    }  # fmt: skip
+    if "k" in changes:
+        changes["k"] = float(changes["k"])
     if "thresholds" in table and "threshold" in table:
-        problems.append(_problem(f"{where} gives both 'thresholds' and 'threshold'", None))
+        problems.append(
+            study_problem(file, f"{where} gives both 'thresholds' and 'threshold'", None,
+                          "one of them")
+        )  # fmt: skip
+        return None
     if "thresholds" in table:
-        raw = table["thresholds"]
-        parsed: dict[float, float] = {}
-        if not isinstance(raw, Mapping) or not raw:
-            problems.append(
-                _problem(
-                    f"'thresholds' in {where} must be a table of field strength -> value",
-                    raw,
-                    'e.g. { "1.5" = 50.0, "3.0" = 79.0 }',
-                )
-            )
-        else:
-            for b0_text, value in raw.items():
-                try:
-                    b0 = float(b0_text)
-                except ValueError:
-                    b0 = math.nan
-                number = _number(value)
-                if not (math.isfinite(b0) and b0 > 0) or number is None:
-                    problems.append(
-                        _problem(
-                            f"'thresholds' in {where}: entry {b0_text!r} = {value!r} is not "
-                            "a field strength in tesla with a number",
-                            {b0_text: value},
-                            'e.g. "1.5" = 50.0',
-                        )
-                    )
-                else:
-                    parsed[b0] = number
-        changes["thresholds"] = MappingProxyType(parsed)
+        changes["thresholds"] = {float(b): float(v) for b, v in table["thresholds"].items()}
         changes["value_any_field"] = None
     if "threshold" in table:
-        number = _number(table["threshold"])
-        if number is None:
-            problems.append(
-                _problem(f"'threshold' in {where} must be a number", table["threshold"])
-            )
-        changes["value_any_field"] = number
+        changes["value_any_field"] = float(table["threshold"])
         changes["thresholds"] = MappingProxyType({})
     if ("thresholds" in table or "threshold" in table) and "source" not in table:
         changes["source"] = "declared in the study file"
         changes.setdefault("derived", False)
     if "derive" in table:
         rule = table["derive"]
-        if rule is False or rule == "none":
-            changes["derivation"] = None
-        elif rule not in DERIVATIONS:
-            problems.append(
-                _problem(
-                    f"'derive' in {where} is not a known rule",
-                    rule,
-                    f"one of {[*DERIVATIONS, 'none']}",
-                )
-            )
-        else:
-            changes["derivation"] = DERIVATIONS[rule]
+        changes["derivation"] = None if rule is False or rule == "none" else DERIVATIONS[rule]
     elif "thresholds" in table or "threshold" in table:
         changes["derivation"] = None  # a rule applies to declared values only if re-declared
-    if "k" in table:
-        number = _number(table["k"])
-        if number is None:
-            problems.append(_problem(f"'k' in {where} must be a number", table["k"]))
-        changes["k"] = number
     if "remote_segments" in table:
         remote = table["remote_segments"]
-        if remote == OUTSIDE_CULPRIT:
-            changes["remote_segments"] = OUTSIDE_CULPRIT
-        elif (
-            isinstance(remote, list)
-            and remote
-            and all(isinstance(s, int) and not isinstance(s, bool) for s in remote)
-        ):
-            changes["remote_segments"] = tuple(remote)
-        else:
-            problems.append(
-                _problem(
-                    f"'remote_segments' in {where} is not valid",
-                    remote,
-                    f"{OUTSIDE_CULPRIT!r} or a list of segment numbers",
-                )
-            )
-    if "min_segments" in table:
-        changes["min_segments"] = table["min_segments"]
-    if len(problems) > n_before:
-        return None
+        changes["remote_segments"] = remote if isinstance(remote, str) else tuple(remote)
     if base is None:
-        for key in ("parameter",):
-            if key not in changes:
-                problems.append(_problem(f"{where} needs '{key}'", None, "a new finding"))
-                return None
+        hint = did_you_mean(name, BUILT_IN).replace("'", "[findings.", 1).replace("'", "]", 1)
+        if "parameter" not in changes:
+            problems.append(
+                study_problem(file, f"{where} needs 'parameter'{hint}", None, "a new finding")
+            )
+            return None
         if changes.get("kind", "absolute") == "absolute" and not (
             "thresholds" in table or "threshold" in table
         ):
             problems.append(
-                _problem(f"{where} needs 'thresholds' or 'threshold'", None, "an absolute finding")
-            )
+                study_problem(file, f"{where} needs 'thresholds' or 'threshold'{hint}", None,
+                              "an absolute finding")
+            )  # fmt: skip
             return None
-        if "source" not in changes:
-            changes["source"] = "declared in the study file"
+        changes.setdefault("source", "declared in the study file")
     try:
         if base is None:
             return FindingDefinition(name=name, **changes)
@@ -550,82 +510,85 @@ def _parse_finding(
             changes.setdefault("derivation", None)
         return replace(base, **changes)
     except (ValueError, TypeError) as exc:
-        problems.append(_problem(f"{where}: {exc}", None))
+        problems.append(study_problem(file, f"{where}: {exc}", None))
         return None
 
 
-def _parse(table: Mapping[str, Any] | None) -> tuple[tuple[FindingDefinition, ...], SwapOptions]:
-    table = dict(table or {})
-    problems: list[Problem] = []
-    sub = {k: v for k, v in table.items() if isinstance(v, Mapping)}
-    top = {k: v for k, v in table.items() if k not in sub}
-    for key in top:
-        if key not in _TOP_KEYS:
-            problems.append(
-                _problem(
-                    f"unknown key '{key}' in [findings]",
-                    key,
-                    f"one of {list(_TOP_KEYS)} or a table [findings.<name>]",
-                )
-            )
-    use_defaults = top.get("use_defaults", True)
-    if not isinstance(use_defaults, bool):
-        problems.append(
-            _problem("'use_defaults' in [findings] must be true or false", use_defaults)
-        )
-        use_defaults = True
-    magnitude = top.get("magnitude_only_methods", [])
-    if not isinstance(magnitude, list) or not all(isinstance(m, str) and m for m in magnitude):
-        problems.append(
-            _problem(
-                "'magnitude_only_methods' in [findings] must be a list of method names",
-                magnitude,
-            )
-        )
-        magnitude = []
-    margin = _number(top.get("swap_margin", DEFAULT_SWAP_MARGIN_PP))
-    if margin is None or not math.isfinite(margin) or margin < 0:
-        problems.append(
-            _problem(
-                "'swap_margin' in [findings] must be a number >= 0 (percentage points)",
-                top.get("swap_margin"),
-            )
-        )
-        margin = DEFAULT_SWAP_MARGIN_PP
+def _build(
+    table: Mapping[str, Any], bad: frozenset[str], file: str, problems: list[Problem]
+) -> tuple[tuple[FindingDefinition, ...], SwapOptions]:
+    """Definitions and swap options of a ``[findings]`` table, leaving ``bad`` keys alone."""
+    use_defaults = table.get("use_defaults", True) if "use_defaults" not in bad else True
     chosen: dict[str, FindingDefinition] = (
         {d.name: d for d in DEFAULT_FINDINGS} if use_defaults else {}
     )
-    for name, content in sub.items():
-        enabled = content.get("enabled", True)
-        if not isinstance(enabled, bool):
-            problems.append(
-                _problem(f"'enabled' in [findings.{name}] must be true or false", enabled)
-            )
+    for name, content in table.items():
+        if name in FINDINGS_RULES or not isinstance(content, Mapping) or name in bad:
             continue
-        definition = _parse_finding(name, content, problems)
-        if not enabled:
+        if not content.get("enabled", True):
+            if name not in BUILT_IN and set(content) == {"enabled"}:
+                hint = did_you_mean(name, BUILT_IN)
+                problems.append(
+                    study_problem(file, f"[findings.{name}] switches off a finding that is not "
+                                  f"defined{hint}", name, f"one of {list(BUILT_IN)}")
+                )  # fmt: skip
             chosen.pop(name, None)
-        elif definition is not None:
+            continue
+        definition = _finding(name, content, file, problems)
+        if definition is not None:
             chosen[name] = definition
-    if problems:
-        raise StudyError(problems)
-    swap = SwapOptions(margin=float(margin), magnitude_only_methods=tuple(magnitude))
+    magnitude = (
+        table.get("magnitude_only_methods", []) if "magnitude_only_methods" not in bad else []
+    )
+    margin = (
+        table.get("swap_margin", DEFAULT_SWAP_MARGIN_PP)
+        if "swap_margin" not in bad
+        else DEFAULT_SWAP_MARGIN_PP
+    )
+    swap = SwapOptions(
+        margin=float(margin), magnitude_only_methods=tuple(m.strip() for m in magnitude)
+    )
     return tuple(chosen.values()), swap
 
 
-def parse_findings(table: Mapping[str, Any] | None) -> tuple[FindingDefinition, ...]:
+def _check_findings(
+    table: Mapping[str, Any], bad: frozenset[str], file: str, document: Mapping[str, Any]
+) -> list[Problem]:
+    problems: list[Problem] = []
+    _build(table, bad, file, problems)
+    return problems
+
+
+FINDINGS_SCHEMA = TableSchema(keys=FINDINGS_RULES, entries=FINDING_RULES, check=_check_findings)
+"""Schema of the ``[findings]`` table for :func:`cohort.options.check_document`."""
+
+
+def _parse(
+    table: Mapping[str, Any] | None, file: str
+) -> tuple[tuple[FindingDefinition, ...], SwapOptions]:
+    table = dict(table or {})
+    problems = check_table("findings", table, FINDINGS_SCHEMA, file)
+    if problems:
+        raise StudyError(problems)
+    return _build(table, frozenset(), file, problems)
+
+
+def parse_findings(
+    table: Mapping[str, Any] | None, file: str = "study file"
+) -> tuple[FindingDefinition, ...]:
     """Finding definitions from the ``[findings]`` table of a study file (format above).
 
     ``None`` or an empty table gives :data:`DEFAULT_FINDINGS`. Raises
-    :class:`~cohort.problems.StudyError` (code ``study-option``) listing every problem.
+    :class:`~cohort.problems.StudyError` (code ``study-option``, located in ``file``) listing
+    every problem.
     """
-    return _parse(table)[0]
+    return _parse(table, file)[0]
 
 
-def parse_swap_options(table: Mapping[str, Any] | None) -> SwapOptions:
+def parse_swap_options(table: Mapping[str, Any] | None, file: str = "study file") -> SwapOptions:
     """Swap-screen options from the ``[findings]`` table (``magnitude_only_methods``,
     ``swap_margin``); raises :class:`~cohort.problems.StudyError` like :func:`parse_findings`."""
-    return _parse(table)[1]
+    return _parse(table, file)[1]
 
 
 THRESHOLDS_COLUMNS = (

@@ -33,7 +33,7 @@ def test_swapped_fat_fractions_raise_an_alert(tmp_path):
 
 def test_analysis_options_come_from_the_study_file(tmp_path):
     study_file = write_demo(tmp_path, n_subjects=6)
-    text = study_file.read_text() + '\n[analysis]\nseed = 5\nn_boot = 10\ncorrection = "fdr_bh"\n'
+    text = study_file.read_text() + '\n[analysis]\nseed = 5\nn_boot = 40\ncorrection = "fdr_bh"\n'
     study_file.write_text(text)
     options = options_from_study(load_study(study_file), n_boot=20)
     assert (options.seed, options.n_boot, options.correction) == (5, 20, "fdr_bh")  # flag wins

@@ -179,19 +179,19 @@ def test_every_problem_is_collected_with_code_study_option():
     assert {p.code for p in problems} == {"study-option"}
     text = "\n".join(str(p) for p in problems)
     assert "unknown key 'colour' in [findings]" in text
-    assert "'swap_margin' in [findings] must be a number >= 0" in text
-    assert "'direction' in [findings.hemorrhage] is not valid" in text and "upwards" in text
-    assert "unknown key 'treshold' in [findings.hemorrhage]" in text
+    assert "[findings] swap_margin is not valid; got '-1'; expected a finite number 0 to" in text
+    assert "[findings.hemorrhage] direction is not valid" in text and "upwards" in text
+    assert "unknown key 'treshold' in [findings.hemorrhage]; did you mean 'threshold'?" in text
     assert "[findings.scar] needs 'parameter'" in text
-    assert "entry 'one-point-five'" in text
-    assert "'derive' in [findings.hem2] is not a known rule" in text
+    assert "[findings.fat] thresholds is not valid; got '{one-point-five = 10.0}'" in text
+    assert "[findings.hem2] derive is not valid; got 'magic'" in text
     assert len(problems) == 7
 
 
 def test_bad_remote_and_min_segments_values():
-    with pytest.raises(StudyError, match=r"remote_segments' in \[findings.r\] is not valid"):
+    with pytest.raises(StudyError, match=r"\[findings.r\] remote_segments is not valid"):
         parse_findings({"r": {"parameter": "ff", "kind": "remote", "k": 2, "remote_segments": "x"}})
-    with pytest.raises(StudyError, match="min_segments must be an integer >= 1"):
+    with pytest.raises(StudyError, match=r"\[findings.fat\] min_segments is not valid"):
         parse_findings({"fat": {"min_segments": 1.5}})
     with pytest.raises(StudyError, match="remote threshold needs k"):
         parse_findings({"r": {"parameter": "ff", "kind": "remote"}})
