@@ -101,14 +101,20 @@ def methods_markdown(analysis: Analysis) -> str:
         "compared with it on the segments where both methods had a value. "
         + (
             "T2* values were converted to R2* = 1000/T2*. "
-            if (study.records["input_parameter"] == "t2star").any()
+            if (
+                study.records["input_parameter"].astype(str).eq("t2star")
+                & study.records["status"].astype(str).eq("used")
+            ).any()
             else ""
         )
         + "Field maps were referenced within each subject and method "
         + {
             "none": "(not referenced: absolute values compared). ",
-            "subject-median": "by subtracting the median over segments. ",
-            "remote": f"by subtracting the median of segments {list(s.remote_segments)}. ",
+            "subject-median": "by subtracting the median over its paired segments (values "
+            "without a partner in the comparison were excluded and not used). ",
+            "remote": f"by subtracting the median of its paired values in segments "
+            f"{list(s.remote_segments)} (values without a partner were excluded and not "
+            "used; a subject without such a value was excluded for that method). ",
         }[s.field_referencing]
         + f"Of {analysis.tables['record_accounting']['records_in'].item()} input values, "
         f"{analysis.tables['record_accounting']['used'].item()} were used, "

@@ -3,12 +3,14 @@
 ``load_study`` reads both tables, checks them (collecting every problem), converts values to
 the canonical units of :mod:`cohort.units`, references field maps within each subject, pairs
 each test method with the reference, and accounts for every input record: each is *used*,
-*missing* (blank cell) or *excluded* with a reason, and the counts reconcile.
+*missing* (blank cell) or *excluded* with a reason, and the counts reconcile. An excluded
+value enters no analysis: :attr:`Study.values` and :attr:`Study.paired` hold the used
+values only, and field maps are referenced with the paired values only.
 """
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 
 import numpy as np
@@ -19,7 +21,15 @@ from .problems import Problem, ProblemLog, StudyError
 from .segments import SEGMENTS, segment_model
 from .settings import StudySettings, read_study_file
 from .units import PARAMETERS, fraction_to_percent, ppm_to_hz, t2star_ms_to_r2star
-from .validation import check_across, check_subjects, check_values
+from .validation import (
+    IMPLAUSIBLE,
+    PER_CODE,
+    check_across,
+    check_subjects,
+    check_values,
+    flag_field,
+    report_excluded_implausible,
+)
 
 PAIRED_COLUMNS = (
     "parameter", "method", "reference", "subject", "group", "field_strength",
@@ -42,8 +52,9 @@ class Study:
     ----------
     settings : the resolved :class:`~cohort.settings.StudySettings`.
     subjects : one row per subject (``subject, group, field_strength`` and covariates).
-    values : canonical values, one row per (subject, method, segment, parameter) with a
-        finite value: ff in %, r2star in 1/s, field in Hz referenced within subject.
+    values : canonical values of the used records only, one row per (subject, method,
+        segment, parameter): ff in %, r2star in 1/s, field in Hz referenced within subject
+        and method. Every row entered a pair; an excluded value is in no analysis table.
     paired : test-method values beside the reference, see :data:`PAIRED_COLUMNS`.
     records : every input value cell with its status (used / missing / excluded) and reason.
     warnings : problems that did not stop the study (each says what was done).
@@ -160,7 +171,8 @@ class Study:
                 "    missing (blank) by method and parameter: "
                 + ", ".join(f"{m} {p} {n}" for (m, p), n in by.items())
             )
-        reasons = self.exclusions().query("status == 'excluded'")["reason"].value_counts()
+        excluded = self.exclusions().query("status == 'excluded'")
+        reasons = excluded["reason"].astype(str).value_counts()  # text: no empty categories
         lines += [f"    excluded: {n} x {reason}" for reason, n in reasons.items()]
         lines.append(
             f"  field maps referenced: {s.field_referencing}"
@@ -177,17 +189,22 @@ class Study:
 def load_study(source: str | Path | StudySettings) -> Study:
     """Load and check a study from a ``study.toml`` path or from :class:`StudySettings`.
 
-    Raises :class:`~cohort.problems.StudyError` listing every problem found.
+    Raises :class:`~cohort.problems.StudyError` listing every problem found. Problems and
+    records name an input file as :meth:`StudySettings.input_name` gives it (relative to the
+    study file), never by an absolute path.
     """
     settings = source if isinstance(source, StudySettings) else read_study_file(source)
     log = ProblemLog()
     raws = {}
     for key, path in (("values", settings.values), ("subjects", settings.subjects)):
+        name = settings.input_name(path) or str(path)
         try:
-            raws[key] = read_table(path)
-            log.problems.extend(raws[key].warnings)
+            raw = read_table(path)
         except StudyError as exc:
-            log.problems.extend(exc.problems)
+            log.problems.extend(_named(exc.problems, name))
+            continue
+        raws[key] = replace(raw, name=name, warnings=_named(raw.warnings, name))
+        log.problems.extend(raws[key].warnings)
     if "values" not in raws or "subjects" not in raws:
         log.raise_if_errors()
     values_raw, subjects_raw = raws["values"], raws["subjects"]
@@ -200,12 +217,20 @@ def load_study(source: str | Path | StudySettings) -> Study:
     subjects = subjects.drop(columns=[ROW]).reset_index(drop=True)
     records = _harmonise(values, subjects, settings, log, values_raw.name)
     log.raise_if_errors()
-    canonical = _canonical_values(records, subjects, settings)
+    shift = _settle(records, settings)
+    canonical = _canonical_values(records, subjects, shift)
     paired = _pair(canonical, settings.reference)
-    _mark_unpaired(records, canonical, paired, settings.reference)
+    n_test = int((records["status"].eq("used") & records["method"].ne(settings.reference)).sum())
+    if len(paired) != n_test:
+        raise RuntimeError("a used test value did not enter exactly one pair")  # invariant
     for frame in (records, canonical, paired):
         _compact(frame)
     return Study(settings, subjects, canonical, paired, records, log.warnings)
+
+
+def _named(problems: list[Problem], name: str) -> list[Problem]:
+    """``problems`` of one input file, with the file named as the outputs name it."""
+    return [p if p.file is None else replace(p, file=name) for p in problems]
 
 
 COMPACT_COLUMNS = frozenset(
@@ -230,61 +255,89 @@ def _harmonise(
     log: ProblemLog,
     name: str,
 ) -> pd.DataFrame:
-    """Convert every record to canonical units; resolve T2* given beside R2*."""
+    """Convert every record to canonical units; set aside implausible values (policy
+    ``"exclude"``); resolve T2* given beside R2*."""
+    parameter = values["parameter"]
+    value = values["input_value"].to_numpy(dtype=float).copy()
+    t2 = parameter.eq("t2star").to_numpy()
+    with np.errstate(divide="ignore"):  # T2* = 0 is implausible: refused or excluded
+        value[t2] = t2star_ms_to_r2star(value[t2])
+    if settings.ff_unit == "fraction":
+        ff = parameter.eq("ff").to_numpy()
+        value[ff] = fraction_to_percent(value[ff])
+    if settings.field_unit == "ppm":
+        fld = parameter.eq("field").to_numpy()
+        b0 = values.loc[fld, "subject"].map(subjects.set_index("subject")["field_strength"])
+        value[fld] = ppm_to_hz(value[fld], b0.to_numpy(dtype=float))
+        # the plausible range is in Hz: checked once the field strength has converted ppm
+        too_far = fld & (np.abs(value) > settings.checks.field_max_abs_hz)
+        flag_field(values, too_far, settings, log, name)
     rec = values.rename(columns={ROW: "source_row", "parameter": "input_parameter"})
     rec["source_file"] = name
     rec["parameter"] = rec["input_parameter"].replace({"t2star": "r2star"})
-    value = rec["input_value"].to_numpy(dtype=float).copy()
-    t2 = rec["input_parameter"].eq("t2star").to_numpy()
-    value[t2] = t2star_ms_to_r2star(value[t2])
-    if settings.ff_unit == "fraction":
-        ff = rec["input_parameter"].eq("ff").to_numpy()
-        value[ff] = fraction_to_percent(value[ff])
-    if settings.field_unit == "ppm":
-        fld = rec["input_parameter"].eq("field").to_numpy()
-        b0 = rec.loc[fld, "subject"].map(subjects.set_index("subject")["field_strength"])
-        value[fld] = ppm_to_hz(value[fld], b0.to_numpy(dtype=float))
     rec["value"] = value
+    report_excluded_implausible(rec, log, name)
     blank = rec["blank"].to_numpy(dtype=bool)
     rec["status"] = _labels(blank, "missing", "used")
     rec["reason"] = _labels(blank, "blank cell", "")
-    rec = rec.drop(columns=["blank"])
+    if IMPLAUSIBLE in rec.columns:
+        implausible = rec[IMPLAUSIBLE].ne("").to_numpy()
+        rec.loc[implausible, "status"] = "excluded"
+        rec.loc[implausible, "reason"] = rec.loc[implausible, IMPLAUSIBLE]
+    rec = rec.drop(columns=["blank", IMPLAUSIBLE], errors="ignore")
+    _resolve_t2star(rec, settings, log, name)
+    return rec
 
-    # T2* and R2* for the same key: keep R2*, check agreement, list the T2* record as excluded
+
+def _resolve_t2star(rec: pd.DataFrame, settings: StudySettings, log: ProblemLog, name: str) -> None:
+    """T2* and R2* for the same key: keep R2*, check agreement (every disagreement is an
+    error), list the agreeing T2* record as excluded."""
     key = ["subject", "method", "segment"]
-    both = rec[rec["parameter"].eq("r2star") & rec["value"].notna()]
+    both = rec[rec["parameter"].eq("r2star") & rec["status"].eq("used")]
     if not both["input_parameter"].eq("t2star").any():
-        return rec  # no T2*: nothing can clash
+        return  # no T2*: nothing can clash
     counts = both.groupby(key)["input_parameter"].transform("nunique")
     clash = both[counts > 1]
-    if len(clash):
-        wide = clash.pivot_table(
-            index=key, columns="input_parameter", values="value", aggfunc="first"
+    if not len(clash):
+        return
+    wide = clash.pivot_table(index=key, columns="input_parameter", values="value", aggfunc="first")
+    rows = clash.pivot_table(
+        index=key, columns="input_parameter", values="source_row", aggfunc="first"
+    )
+    where = clash.set_index([*key, "input_parameter"])["source_column"]
+    tol = settings.checks.t2star_r2star_tolerance
+    disagree = ((wide["t2star"] - wide["r2star"]).abs() > tol * wide["r2star"].abs()).to_numpy()
+    conflicts = wide.index[disagree]
+    expected = f"R2* = 1000 / T2* within {tol:.0%}, or give only one of them"
+    for idx in conflicts[:PER_CODE]:
+        t2_row, t2_column = int(rows.loc[idx, "t2star"]), str(where.loc[(*idx, "t2star")])
+        log.add(
+            "t2star-r2star-conflict",
+            f"T2* (row {t2_row}, column {t2_column!r}) gives R2* "
+            f"{wide.loc[idx, 't2star']:.4g} 1/s but R2* is {wide.loc[idx, 'r2star']:.4g} 1/s "
+            f"for segment {idx[2]}",
+            file=name,
+            row=int(rows.loc[idx, "r2star"]),
+            column=str(where.loc[(*idx, "r2star")]),
+            expected=expected,
+            subject=str(idx[0]),
+            method=str(idx[1]),
         )
-        rows = clash.pivot_table(
-            index=key, columns="input_parameter", values="source_row", aggfunc="first"
+    if len(conflicts) > PER_CODE:
+        log.add(
+            "t2star-r2star-conflict",
+            f"{len(conflicts) - PER_CODE} more segments where T2* and R2* disagree "
+            f"({len(conflicts)} in all)",
+            file=name,
+            expected=expected,
         )
-        tol = settings.checks.t2star_r2star_tolerance
-        disagree = (wide["t2star"] - wide["r2star"]).abs() > tol * wide["r2star"].abs()
-        for idx in wide.index[disagree.to_numpy()][:20]:
-            log.add(
-                "t2star-r2star-conflict",
-                f"T2* (row {int(rows.loc[idx, 't2star'])}) gives R2* "
-                f"{wide.loc[idx, 't2star']:.4g} 1/s "
-                f"but R2* is {wide.loc[idx, 'r2star']:.4g} 1/s for subject {idx[0]!r}, "
-                f"method {idx[1]!r}, segment {idx[2]}",
-                file=name,
-                row=int(rows.loc[idx, "r2star"]),
-                expected=f"R2* = 1000 / T2* within {tol:.0%}, or give only one of them",
-            )
-        agree_keys = wide.index[~disagree.to_numpy()]
-        drop = (
-            rec.set_index(key).index.isin(agree_keys)
-            & rec["input_parameter"].eq("t2star").to_numpy()
-        )
-        rec.loc[drop, "status"] = "excluded"
-        rec.loc[drop, "reason"] = "T2* duplicates the R2* value given for the same segment"
-    return rec
+    drop = (
+        rec.set_index(key).index.isin(wide.index[~disagree])
+        & rec["input_parameter"].eq("t2star").to_numpy()
+        & rec["status"].eq("used").to_numpy()
+    )
+    rec.loc[drop, "status"] = "excluded"
+    rec.loc[drop, "reason"] = "T2* duplicates the R2* value given for the same segment"
 
 
 def _labels(mask: np.ndarray, yes: str, no: str) -> pd.api.extensions.ExtensionArray:
@@ -302,30 +355,21 @@ def _lookup(keys: pd.Series, mapping: pd.Series | dict) -> pd.Series:
 
 
 def _canonical_values(
-    records: pd.DataFrame, subjects: pd.DataFrame, settings: StudySettings
+    records: pd.DataFrame, subjects: pd.DataFrame, shift: np.ndarray
 ) -> pd.DataFrame:
-    used = records[records["status"].eq("used")]
-    canon = used[["subject", "method", "segment", "parameter", "value"]].copy()
+    """The used records in canonical units, field values referenced (``value - shift``)."""
+    used = records["status"].eq("used").to_numpy()
+    canon = records.loc[used, ["subject", "method", "segment", "parameter", "value"]].copy()
     canon["segment"] = canon["segment"].astype(int)
-    fld = canon["parameter"].eq("field")
-    if fld.any() and settings.field_referencing != "none":
-        part = canon[fld]
-        if settings.field_referencing == "subject-median":
-            basis = part
-        else:
-            basis = part[part["segment"].isin(settings.remote_segments)]
-        offset = basis.groupby(["subject", "method"])["value"].median()
-        # each row's (subject, method) offset, NaN where there is none (as Index.map gives)
-        keys = part.groupby(["subject", "method"], sort=True)
-        shift = offset.reindex(keys.size().index).to_numpy(dtype=float)[keys.ngroup()]
-        canon.loc[fld, "value"] = part["value"].to_numpy() - shift
+    canon["value"] = canon["value"].to_numpy(dtype=float) - shift[used]
+    if not np.isfinite(canon["value"].to_numpy(dtype=float)).all():
+        raise RuntimeError("a used value is not finite")  # invariant: checks refuse these
     info = subjects.set_index("subject")
     canon["group"] = _lookup(canon["subject"], info["group"])
     canon["field_strength"] = _lookup(canon["subject"], info["field_strength"]).astype(float)
     canon["segment_name"] = _lookup(canon["segment"], {n: s.name for n, s in SEGMENTS.items()})
     canon["ring"] = _lookup(canon["segment"], {n: s.ring for n, s in SEGMENTS.items()})
     canon["territory"] = _lookup(canon["segment"], {n: s.territory for n, s in SEGMENTS.items()})
-    canon = canon[np.isfinite(canon["value"].to_numpy(dtype=float))]
     return canon.reset_index(drop=True)
 
 
@@ -366,29 +410,89 @@ def _key_codes(subject: np.ndarray, segment: np.ndarray, parameter: np.ndarray) 
     ) + parameter
 
 
-def _mark_unpaired(
-    records: pd.DataFrame, canon: pd.DataFrame, paired: pd.DataFrame, reference: str
-) -> None:
-    """Mark used records that did not enter any pair as excluded, with the reason."""
-    used = records["status"].eq("used").to_numpy()
-    # integer codes of (subject, segment, parameter[, method]) shared by both tables
-    subjects, subject_labels = pd.factorize(records["subject"])
-    parameters, parameter_labels = pd.factorize(records["parameter"])
+def _settle(records: pd.DataFrame, settings: StudySettings) -> np.ndarray:
+    """Exclude what cannot be compared; return each record's field reference offset.
+
+    A used record stays used only if it is paired (a test value with the reference value of
+    the same subject, segment and parameter; a reference value with at least one test
+    value) and, for the field, if its (subject, method) has a reference offset. Offsets are
+    computed from the paired field values only (subject median, or median of the remote
+    segments), so an excluded value shifts nothing. Excluding a value can unpair another or
+    remove a remote segment, so the steps repeat until nothing changes (the used set only
+    shrinks: at most as many rounds as records, in practice two or three).
+
+    Returns the offset per record (0 outside the field; NaN for records not used).
+    """
+    reference = settings.reference
+    subjects, _ = pd.factorize(records["subject"])
+    parameters, _ = pd.factorize(records["parameter"])
     methods, method_labels = pd.factorize(records["method"])
     segment = records["segment"].astype("Int64").fillna(-1).to_numpy(dtype=np.int64)
-    rec_key = _key_codes(subjects, segment, parameters)
-    pair_key = _key_codes(
-        pd.Index(subject_labels).get_indexer(paired["subject"]),
-        paired["segment"].to_numpy(dtype=np.int64),
-        pd.Index(parameter_labels).get_indexer(paired["parameter"]),
-    )
-    in_pair = np.isin(rec_key, pair_key)
-    n_methods = len(method_labels) + 1
-    rec_key_m = rec_key * n_methods + methods
-    pair_key_m = pair_key * n_methods + pd.Index(method_labels).get_indexer(paired["method"])
+    key = _key_codes(subjects, segment, parameters)
     is_ref = records["method"].eq(reference).to_numpy()
-    ok = np.where(is_ref, in_pair, np.isin(rec_key_m, pair_key_m))
-    unpaired = used & ~ok
-    records.loc[unpaired & is_ref, "reason"] = "no other method has a value for this segment"
-    records.loc[unpaired & ~is_ref, "reason"] = "the reference method has no value for this segment"
-    records.loc[unpaired, "status"] = "excluded"
+    is_field = records["parameter"].eq("field").to_numpy()
+    status = records["status"].to_numpy(dtype=object)
+    used, excluded = status == "used", status == "excluded"
+    referencing = settings.field_referencing
+    basis_segment = (
+        np.isin(segment, settings.remote_segments)
+        if referencing == "remote"
+        else np.ones(len(records), dtype=bool)
+    )
+    unit = subjects.astype(np.int64) * (len(method_labels) + 1) + methods  # (subject, method)
+    shift = np.zeros(len(records))
+    while True:
+        partner = np.where(
+            is_ref, np.isin(key, key[used & ~is_ref]), np.isin(key, key[used & is_ref])
+        )
+        unpaired = used & ~partner
+        if unpaired.any():
+            partner_excluded = np.where(
+                is_ref, np.isin(key, key[excluded & ~is_ref]), np.isin(key, key[excluded & is_ref])
+            )
+            reason = np.where(
+                is_ref,
+                np.where(
+                    partner_excluded,
+                    "the other methods' values for this segment are excluded",
+                    "no other method has a value for this segment",
+                ),
+                np.where(
+                    partner_excluded,
+                    "the reference value for this segment is excluded",
+                    "the reference method has no value for this segment",
+                ),
+            )
+            _exclude(records, unpaired, reason)
+            used, excluded = used & ~unpaired, excluded | unpaired
+            continue
+        if referencing == "none" or not (used & is_field).any():
+            break
+        basis = used & is_field & basis_segment
+        offset = (
+            pd.Series(records["value"].to_numpy(dtype=float)[basis]).groupby(unit[basis]).median()
+        )
+        rows = used & is_field
+        shift = np.zeros(len(records))
+        shift[rows] = offset.reindex(unit[rows]).to_numpy(dtype=float)
+        unreferenced = rows & np.isnan(shift)
+        if not unreferenced.any():
+            break
+        segments = ", ".join(str(s) for s in settings.remote_segments)
+        texts = np.array(
+            [
+                f"field not referenced: subject has no usable remote-segment value "
+                f"(segments {segments}) for method {m!r}"
+                for m in method_labels
+            ],
+            dtype=object,
+        )
+        _exclude(records, unreferenced, texts[methods])
+        used, excluded = used & ~unreferenced, excluded | unreferenced
+    shift[~used] = np.nan
+    return shift
+
+
+def _exclude(records: pd.DataFrame, mask: np.ndarray, reason: np.ndarray) -> None:
+    records.loc[mask, "status"] = "excluded"
+    records.loc[mask, "reason"] = reason[mask]

@@ -49,7 +49,10 @@ def _flag(
         return
     rows = frame.loc[mask, ROW].to_numpy()
     shown = values[mask].to_numpy() if values is not None else [None] * n
-    for row, value in list(zip(rows, shown, strict=True))[:PER_CODE]:
+    shown_n = min(n, PER_CODE)
+    subjects, methods = (_ids(frame, mask, c, shown_n) for c in ("subject", "method"))
+    listed = zip(rows[:shown_n], shown[:shown_n], subjects, methods, strict=True)
+    for row, value, subject, method in listed:
         log.add(
             code,
             detail,
@@ -58,6 +61,8 @@ def _flag(
             column=column,
             value=None if value is None else str(value),
             expected=expected,
+            subject=subject,
+            method=method,
         )
     if n > PER_CODE:
         log.add(
@@ -67,6 +72,17 @@ def _flag(
             file=file,
             column=column,
         )
+
+
+def _ids(frame: pd.DataFrame, mask: np.ndarray, column: str, n: int) -> list[str | None]:
+    """The first ``n`` flagged rows' ``column`` (subject or method) as text, ``None`` where
+    blank or absent: problems carry IDs in their own fields, never inside their detail text."""
+    if column not in frame.columns:
+        return [None] * n
+    return [
+        None if pd.isna(v) or not str(v).strip() else str(v)
+        for v in frame.loc[mask, column].to_numpy()[:n]
+    ]
 
 
 def _require(log: ProblemLog, raw: RawTable, columns: tuple[str, ...], what: str) -> bool:
@@ -178,16 +194,30 @@ def parse_numbers(text: pd.Series) -> tuple[pd.Series, pd.Series, pd.Series]:
     return _parse_numbers(text)
 
 
+BLANK_TEXTS = ("", "na", "nan", "n/a")
+"""Cell texts (trimmed, any case) read as a blank cell: missing data, not an error."""
+
+
+def _is_blank(text: pd.Series) -> pd.Series:
+    return text.str.strip().str.lower().isin(BLANK_TEXTS)
+
+
 def _parse_numbers(text: pd.Series) -> tuple[pd.Series, pd.Series, pd.Series]:
     stripped = text.str.strip()
-    blank = stripped.eq("") | stripped.str.lower().isin(["na", "nan", "n/a"])
+    blank = _is_blank(text)
     numbers = pd.to_numeric(stripped.where(~blank), errors="coerce").astype(float)
     bad = numbers.isna() & ~blank
     return numbers, blank, bad
 
 
 def to_long(raw: RawTable, log: ProblemLog) -> pd.DataFrame | None:
-    """Values table in long layout (one record per value) with source row and column."""
+    """Values table in long layout (one record per value) with source row and column.
+
+    In the wide layout (one column per parameter) a method with every cell of a parameter
+    column blank does not measure that parameter: those cells give no records, as an
+    absent column gives none. Blank cells of a method that measures the parameter in other
+    rows are records of missing data.
+    """
     frame = raw.frame
     if "parameter" in frame.columns and "value" in frame.columns:
         if not _require(log, raw, LONG_COLUMNS, "values"):
@@ -202,13 +232,18 @@ def to_long(raw: RawTable, log: ProblemLog) -> pd.DataFrame | None:
     if not _require(log, raw, ID_COLUMNS, "values"):
         return None
     extra = [c for c in frame.columns if c not in (*ID_COLUMNS, *wide, ROW)]
+    method = frame["method"].str.strip()
     parts = []
     for parameter in wide:
-        part = frame[[ROW, *ID_COLUMNS, *extra]].copy()
+        # A method whose every cell of this column is blank does not measure the parameter
+        # (e.g. no field map): its cells are no input values, as if the column were absent.
+        # A blank cell of a method that measures it elsewhere is missing data.
+        measured = (~_is_blank(frame[parameter])).groupby(method).transform("any")
+        keep = (measured | method.eq("")).to_numpy()
+        part = frame.loc[keep, [ROW, *ID_COLUMNS, *extra]].copy()
         part["parameter"] = parameter
-        part["value"] = frame[parameter]
+        part["value"] = frame.loc[keep, parameter]
         part["source_column"] = raw.original_columns[parameter]
-        # a blank cell in a wide table means "not measured" only where the column exists
         parts.append(part)
     return pd.concat(parts, ignore_index=True)
 
@@ -312,13 +347,14 @@ def check_values(raw: RawTable, settings: StudySettings, log: ProblemLog) -> pd.
             first, *others = rows[ROW].tolist()
             log.add(
                 "duplicate-value",
-                f"subject {rows['subject'].iloc[0]!r}, method {rows['method'].iloc[0]!r}, "
                 f"segment {rows['segment'].iloc[0]}, parameter {rows['parameter'].iloc[0]!r} "
                 f"also in row(s) {others}",
                 file=name,
                 row=int(first),
                 column=str(rows["source_column"].iloc[0]),
                 expected="one value per subject, method, segment and parameter",
+                subject=str(rows["subject"].iloc[0]),
+                method=str(rows["method"].iloc[0]),
             )
         n_groups = dups.groupby(key, sort=False).ngroups
         if n_groups > PER_CODE:
@@ -327,51 +363,90 @@ def check_values(raw: RawTable, settings: StudySettings, log: ProblemLog) -> pd.
     return long
 
 
+IMPLAUSIBLE = "_implausible"
+"""Column of the checked values table: why a value is implausible (empty when it is not);
+filled only with ``[checks] implausible = "exclude"``, else each such value is an error."""
+
+
+def flag_implausible(
+    long: pd.DataFrame,
+    mask: pd.Series | np.ndarray,
+    settings: StudySettings,
+    log: ProblemLog,
+    name: str,
+    *,
+    detail: str,
+    expected: str,
+    rule: str,
+) -> None:
+    """Apply the ``[checks] implausible`` policy to the rows of ``long`` under ``mask``.
+
+    ``"refuse"``: one ``implausible-value`` error per row (:func:`_flag`, per source column).
+    ``"exclude"``: the row's :data:`IMPLAUSIBLE` reason becomes ``"implausible: <rule>"``
+    (the first rule a value breaks), for the loader to list it as excluded.
+    """
+    mask = np.asarray(mask, dtype=bool)
+    if not mask.any():
+        return
+    if settings.checks.implausible == "exclude":
+        if IMPLAUSIBLE not in long.columns:
+            long[IMPLAUSIBLE] = ""
+        fresh = mask & long[IMPLAUSIBLE].eq("").to_numpy()
+        long.loc[fresh, IMPLAUSIBLE] = f"implausible: {rule}"
+        return
+    for source_column, part in long[mask].groupby("source_column", sort=False):
+        _flag(
+            log,
+            np.ones(len(part), dtype=bool),
+            part,
+            code="implausible-value",
+            detail=detail,
+            file=name,
+            column=str(source_column),
+            values=long.loc[part.index, "value_text"],
+            expected=expected,
+        )
+
+
+def report_excluded_implausible(long: pd.DataFrame, log: ProblemLog, name: str) -> None:
+    """One summary warning for the values excluded as implausible (policy ``"exclude"``)."""
+    if IMPLAUSIBLE not in long.columns:
+        return
+    reasons = long.loc[long[IMPLAUSIBLE].ne(""), IMPLAUSIBLE].value_counts(sort=False)
+    if not reasons.sum():
+        return
+    log.warn(
+        "implausible-value",
+        f"{int(reasons.sum())} implausible value(s) excluded ([checks] implausible = "
+        "'exclude'): "
+        + "; ".join(
+            f"{n} x {reason.removeprefix('implausible: ')}" for reason, n in reasons.items()
+        )
+        + "; each is listed in the exclusions table",
+        file=name,
+    )
+
+
 def _check_ranges(long: pd.DataFrame, settings: StudySettings, log: ProblemLog, name: str) -> None:
     checks = settings.checks
     v = long["input_value"]
 
-    def flag(mask: pd.Series, code: str, detail: str, expected: str) -> None:
-        for source_column, part in long[mask.to_numpy()].groupby("source_column", sort=False):
-            _flag(
-                log,
-                np.ones(len(part), dtype=bool),
-                part,
-                code=code,
-                detail=detail,
-                file=name,
-                column=str(source_column),
-                values=long.loc[part.index, "value_text"],
-                expected=expected,
-            )
+    def flag(mask: pd.Series, detail: str, expected: str, rule: str) -> None:
+        flag_implausible(
+            long, mask, settings, log, name, detail=detail, expected=expected, rule=rule
+        )
 
     ff = long["parameter"].eq("ff") & v.notna()
     if settings.ff_unit == "percent":
         low, high = -checks.ff_below_zero_tolerance, 100 + checks.ff_above_100_tolerance
-        scale_by_method = v[ff].abs().groupby(long.loc[ff, "method"]).max()
-        small = scale_by_method[scale_by_method <= 1.0]
-        large = scale_by_method[scale_by_method > 1.5]
-        for method in small.index if len(large) else []:
-            rows = long[ff & long["method"].eq(method)]
-            log.add(
-                "unit-mismatch",
-                f"fat fractions of method {method!r} are all within 0-1 while "
-                f"{list(large.index)} reach {large.max():.3g}: they look like fractions",
-                file=name,
-                row=int(rows[ROW].iloc[0]),
-                column=str(rows["source_column"].iloc[0]),
-                expected="all methods in percent as declared (units.ff = 'percent'), "
-                "or convert this method to percent",
-            )
-        if len(small) == len(scale_by_method) and len(small) and small.max() > 0:
-            rows = long[ff]
-            log.warn(
-                "unit-mismatch",
-                "every fat fraction is within 0-1 %: if these are fractions (0-1), "
-                "declare units.ff = 'fraction'",
-                file=name,
-                column=str(rows["source_column"].iloc[0]),
-            )
+        _check_percent_scale(long, ff, checks.ff_percent_confirmed, log, name)
+        flag(
+            ff & ((v < low) | (v > high)),
+            "fat fraction outside the plausible range",
+            f"{low:g} to {high:g} % (small negative values are noise; see [checks])",
+            f"fat fraction outside {low:g} to {high:g} % ([checks] ff_below_zero_tolerance, "
+            "ff_above_100_tolerance)",
+        )
     else:
         low, high = -checks.ff_below_zero_tolerance / 100, 1 + checks.ff_above_100_tolerance / 100
         above = ff & (v > high)
@@ -387,40 +462,120 @@ def _check_ranges(long: pd.DataFrame, settings: StudySettings, log: ProblemLog, 
                 expected="fractions 0-1, or declare units.ff = 'percent'",
             )
             above = above & False
-        flag(above, "implausible-value", "fat fraction above 1 (fraction)", f"at most {high:g}")
-        flag(ff & (v < low), "implausible-value", "fat fraction below 0", f"at least {low:g}")
-    if settings.ff_unit == "percent":
         flag(
-            ff & ((v < low) | (v > high)),
-            "implausible-value",
-            "fat fraction outside the plausible range",
-            f"{low:g} to {high:g} % (small negative values are noise; see [checks])",
+            above,
+            "fat fraction above 1 (fraction)",
+            f"at most {high:g}",
+            f"fat fraction above the plausible maximum {high:g} (fraction; "
+            "[checks] ff_above_100_tolerance)",
+        )
+        flag(
+            ff & (v < low),
+            "fat fraction below 0",
+            f"at least {low:g}",
+            f"fat fraction below the plausible minimum {low:g} (fraction; "
+            "[checks] ff_below_zero_tolerance)",
         )
     r2 = long["parameter"].eq("r2star") & v.notna()
-    flag(r2 & (v < 0), "implausible-value", "R2* is negative", "R2* >= 0 1/s")
+    flag(r2 & (v < 0), "R2* is negative", "R2* >= 0 1/s", "R2* is negative")
     flag(
         r2 & (v > checks.r2star_max),
-        "implausible-value",
         "R2* above the plausible maximum",
         f"at most {checks.r2star_max:g} 1/s ([checks] r2star_max)",
+        f"R2* above the plausible maximum {checks.r2star_max:g} 1/s ([checks] r2star_max)",
     )
     fld = long["parameter"].eq("field") & v.notna()
-    limit = checks.field_max_abs_hz
     if settings.field_unit == "Hz":
-        flag(
-            fld & (v.abs() > limit),
-            "implausible-value",
-            "field offset beyond the plausible range",
-            f"|field| at most {limit:g} Hz ([checks] field_max_abs_hz)",
-        )
+        flag_field(long, fld & (v.abs() > checks.field_max_abs_hz), settings, log, name)
     t2 = long["parameter"].eq("t2star") & v.notna()
-    flag(t2 & (v <= 0), "implausible-value", "T2* must be positive", "T2* > 0 ms")
+    flag(t2 & (v <= 0), "T2* must be positive", "T2* > 0 ms", "T2* is not positive")
+    t2_min = 1000.0 / checks.r2star_max
     flag(
-        t2 & (v > 0) & (v < 1000.0 / checks.r2star_max),
-        "implausible-value",
+        t2 & (v > 0) & (v < t2_min),
         "T2* below the plausible minimum",
-        f"at least {1000.0 / checks.r2star_max:g} ms ([checks] r2star_max)",
+        f"at least {t2_min:g} ms ([checks] r2star_max)",
+        f"T2* below the plausible minimum {t2_min:g} ms ([checks] r2star_max)",
     )
+
+
+def flag_field(
+    long: pd.DataFrame,
+    mask: pd.Series | np.ndarray,
+    settings: StudySettings,
+    log: ProblemLog,
+    name: str,
+) -> None:
+    """Field offsets beyond ``[checks] field_max_abs_hz``: in Hz as given, or after the
+    conversion from ppm (which needs the subjects' field strengths, hence a function of its
+    own that the loader calls once the values are in Hz)."""
+    limit = settings.checks.field_max_abs_hz
+    flag_implausible(
+        long,
+        mask,
+        settings,
+        log,
+        name,
+        detail="field offset beyond the plausible range"
+        + (" (after conversion from ppm)" if settings.field_unit == "ppm" else ""),
+        expected=f"|field| at most {limit:g} Hz ([checks] field_max_abs_hz)",
+        rule=f"field offset beyond the plausible {limit:g} Hz ([checks] field_max_abs_hz)",
+    )
+
+
+def _check_percent_scale(
+    long: pd.DataFrame, ff: pd.Series, confirmed: bool, log: ProblemLog, name: str
+) -> None:
+    """Fat fractions declared in percent that look like 0-1 fractions.
+
+    One method within 0-1 while another reaches beyond 1.5 %: an error naming the method.
+    Every fat fraction within 0-1 (but not all exactly 0, which reads the same in either
+    unit): an error, or a warning with ``[checks] ff_percent_confirmed = true``.
+    """
+    v = long["input_value"]
+    size = v[ff].abs()
+    scale_by_method = size.groupby(long.loc[ff, "method"], observed=True).max()
+    small = scale_by_method[scale_by_method <= 1.0]
+    large = scale_by_method[scale_by_method > 1.5]
+    for method in small.index if len(large) else []:
+        rows = long[ff & long["method"].eq(method)]
+        log.add(
+            "unit-mismatch",
+            f"fat fractions of method {method!r} are all within 0-1 while "
+            f"{list(large.index)} reach {large.max():.3g}: they look like fractions",
+            file=name,
+            row=int(rows[ROW].iloc[0]),
+            column=str(rows["source_column"].iloc[0]),
+            expected="all methods in percent as declared (units.ff = 'percent'), "
+            "or convert this method to percent",
+            method=str(method),
+        )
+    if not (len(small) and len(small) == len(scale_by_method) and small.max() > 0):
+        return
+    largest = long.loc[size.idxmax()]
+    detail = (
+        f"every fat fraction is within 0-1 (largest {largest['value_text']!s}, this row) while "
+        "units.ff = 'percent' is declared: they look like fractions"
+    )
+    where = {
+        "file": name,
+        "row": int(largest[ROW]),
+        "column": str(largest["source_column"]),
+    }
+    if confirmed:
+        log.warn(
+            "unit-mismatch",
+            detail + "; accepted as percent ([checks] ff_percent_confirmed = true)",
+            **where,
+        )
+    else:
+        log.add(
+            "unit-mismatch",
+            detail,
+            expected="declare units.ff = 'fraction' if these are 0-1 fractions; if they "
+            "really are percent (a cohort with almost no fat), set "
+            "[checks] ff_percent_confirmed = true",
+            **where,
+        )
 
 
 def check_subjects(raw: RawTable, settings: StudySettings, log: ProblemLog) -> pd.DataFrame | None:
@@ -430,6 +585,7 @@ def check_subjects(raw: RawTable, settings: StudySettings, log: ProblemLog) -> p
     frame = raw.frame.copy()
     name = raw.name
     col = raw.original_columns
+    _check_group_spelling(log, frame, name, col["group"])
     _trim_ids(log, frame, name, ("subject", "group"))
     _flag(
         log,
@@ -449,11 +605,12 @@ def check_subjects(raw: RawTable, settings: StudySettings, log: ProblemLog) -> p
         first, *others = rows[ROW].tolist()
         log.add(
             "duplicate-subject",
-            f"subject {subject!r} also in row(s) {others}{conflict}",
+            f"subject also in row(s) {others}{conflict}",
             file=name,
             row=int(first),
             column=col["subject"],
             expected="one row per subject",
+            subject=str(subject),
         )
     if settings.groups:
         unknown = ~frame["group"].isin(settings.groups)
@@ -510,6 +667,37 @@ def check_subjects(raw: RawTable, settings: StudySettings, log: ProblemLog) -> p
     return frame
 
 
+def _group_key(name: str) -> str:
+    """A group name without case and with runs of white space as one space."""
+    return " ".join(name.split()).casefold()
+
+
+def _check_group_spelling(log: ProblemLog, frame: pd.DataFrame, name: str, column: str) -> None:
+    """Warn about group names that differ only in case or spacing ("Acute", "acute ",
+    "acute  mi"): a typing slip would otherwise split one group in two (common practice)."""
+    spellings = pd.Series(frame["group"].unique(), dtype=object)
+    spellings = spellings[spellings.map(lambda g: isinstance(g, str) and g.strip() != "")]
+    keys = spellings.map(_group_key)
+    for _, names in spellings.groupby(keys.to_numpy(), sort=False):
+        if len(names) < 2:
+            continue
+        listed = list(names)  # in order of first appearance
+        kept = len({n.strip() for n in listed})
+        first = frame.loc[frame["group"].isin(listed[1:]), ROW].iloc[0]
+        log.warn(
+            "group-spelling",
+            f"group names {listed} differ only in case or spacing; "
+            + (
+                f"they count as {kept} different groups: write one spelling if they are one group"
+                if kept > 1
+                else "surrounding spaces are removed, so they count as one group"
+            ),
+            file=name,
+            row=int(first),
+            column=column,
+        )
+
+
 def check_across(
     values: pd.DataFrame,
     subjects: pd.DataFrame,
@@ -525,12 +713,12 @@ def check_across(
     for subject, rows in list(orphan.groupby("subject", sort=False))[:PER_CODE]:
         log.add(
             "subject-without-info",
-            f"subject {subject!r} ({len(rows)} value(s)) is not in {subjects_name}",
+            f"subject with {len(rows)} value(s) is not in {subjects_name}",
             file=values_name,
             row=int(rows[ROW].iloc[0]),
             column="subject",
-            value=str(subject),
             expected=f"a row for this subject in {subjects_name}",
+            subject=str(subject),
         )
     n_orphans = orphan["subject"].nunique()
     if n_orphans > PER_CODE:
@@ -547,7 +735,6 @@ def check_across(
         detail=f"subject has no values in {values_name}",
         file=subjects_name,
         column="subject",
-        values=lonely["subject"],
         expected=f"values for this subject in {values_name}, or remove the row",
     )
     methods = sorted(m for m in values["method"].unique() if m)

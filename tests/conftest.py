@@ -7,7 +7,9 @@ from pathlib import Path
 
 import pytest
 
+from cohort.problems import StudyError
 from cohort.settings import build_settings
+from cohort.study import load_study
 
 HEADER = ["subject", "method", "segment", "parameter", "value"]
 
@@ -61,3 +63,17 @@ def make_study(tmp_path):
         return build_settings(values=vpath, subjects=spath, reference=reference, **options)
 
     return make
+
+
+def problems_of(settings):
+    """The problems of the StudyError that loading ``settings`` raises."""
+    with pytest.raises(StudyError) as info:
+        load_study(settings)
+    return info.value.problems
+
+
+def coded(problems, code):
+    """The problems with ``code``; fails when there is none."""
+    found = [p for p in problems if p.code == code]
+    assert found, f"no {code!r} problem among {[str(p) for p in problems[:5]]}"
+    return found

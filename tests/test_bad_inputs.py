@@ -269,8 +269,8 @@ CASES = {
         ),
         None,
         ["--reference", "réf"],
-        0,
-        None,
+        2,
+        "values.csv, row 2: line 2 is not UTF-8 text",  # UTF-8 only, never guessed (loading)
     ),
     "blank subject ID": (
         lambda p: write_csv(p / "values.csv", HEADER, edit(small_values(), 5, 0, "")),
@@ -299,6 +299,24 @@ CASES = {
         [],
         2,
         "R2* is negative",
+    ),
+    "fat fractions as 0-1 fractions while percent is declared": (
+        lambda p: write_csv(
+            p / "values.csv",
+            HEADER,
+            [r if r[3] != "ff" else [*r[:4], r[4] / 100] for r in small_values()],
+        ),
+        None,
+        [],
+        2,
+        "units.ff = 'fraction'",
+    ),
+    "R2* above the plausible maximum": (
+        lambda p: write_csv(p / "values.csv", HEADER, edit(small_values(), 1, 4, "1200")),
+        None,
+        [],
+        2,
+        "values.csv, row 3, column 'value', subject '0017', method 'ref'",
     ),
     "field offset far too large": (
         lambda p: write_csv(p / "values.csv", HEADER, edit(small_values(), 2, 4, "250000")),

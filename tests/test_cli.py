@@ -76,7 +76,10 @@ def test_check_on_bad_input_exits_2_naming_file_row_column_without_traceback(tmp
     )  # fmt: skip
     assert result.returncode == 2
     assert "Traceback" not in result.stderr
-    assert "values.csv, row 7, column 'value': value is not a number; got 'n.a.'" in result.stderr
+    assert (
+        "values.csv, row 7, column 'value', subject '0017', method 'ref': value is not a number; "
+        "got 'n.a.'"
+    ) in result.stderr
     assert "subjects.csv, row 4, column 'field_strength'" in result.stderr
     assert result.stdout == ""
     assert sorted(p.name for p in tmp_path.iterdir()) == before  # check never writes

@@ -642,7 +642,10 @@ def test_subject_means_path_equals_the_mixed_model_on_a_balanced_design(study):
     # subject means (algebra; see MIXED_MODEL_MAX_OBSERVATIONS), statsmodels MixedLM fit
     v = study.values
     part = v[v["parameter"].eq("r2star") & v["method"].eq("reference-fit")]
-    assert part.groupby("subject").size().nunique() == 1
+    # the demo leaves a few test values blank, so their reference partners are excluded:
+    # keep the subjects with all 17 segments
+    part = part[part.groupby("subject")["segment"].transform("size").eq(17)]
+    assert part.groupby("subject").size().nunique() == 1 and part["subject"].nunique() > 40
     mixed = G.group_models(part, study.subjects, ORDER, path="mixed").set_index("term")
     means = G.group_models(part, study.subjects, ORDER, path="subject-means").set_index("term")
     assert (means["path"] == G.SUBJECT_MEANS_PATH).all()
@@ -668,7 +671,15 @@ def test_path_is_chosen_by_size_and_stated(study):
         out = G.group_comparison_table(study.values, study.subjects, max_mixed_observations=100)
     assert out.model_path.startswith(G.SUBJECT_MEANS_PATH) and "large cohort" in out.model_path
     joint = out.models[out.models["term"].eq(G.JOINT_GROUP)]
-    assert joint["note"].str.contains("816 values per fit > 100").all()
+    # each fit states its own size: the used values of its parameter and method
+    sizes = (
+        study.values.astype({"parameter": str, "method": str})
+        .groupby(["parameter", "method"])
+        .size()
+    )
+    for row in joint.itertuples():
+        n = sizes[(str(row.parameter), str(row.method))]
+        assert f"{n} values per fit > 100" in row.note
     assert set(out.tables()) >= {"group_comparison", "group_descriptives", "group_models"}
 
 

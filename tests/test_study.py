@@ -16,20 +16,8 @@ import pytest
 from cohort.problems import StudyError
 from cohort.study import COMPACT_COLUMNS, PAIRED_COLUMNS, load_study
 
-from .conftest import HEADER, small_subjects, small_values, write_csv
-
-
-def problems_of(settings):
-    with pytest.raises(StudyError) as info:
-        load_study(settings)
-    return info.value.problems
-
-
-def only(problems, code):
-    found = [p for p in problems if p.code == code]
-    assert found, f"no {code!r} problem among {[str(p) for p in problems[:5]]}"
-    return found
-
+from .conftest import HEADER, problems_of, small_subjects, small_values, write_csv
+from .conftest import coded as only
 
 # --- valid input ---------------------------------------------------------------------------
 
@@ -288,13 +276,16 @@ def test_infinite_value(make_study):
 def test_subject_in_values_but_not_in_subjects(make_study):
     subjects = small_subjects()[:2]
     problem = only(problems_of(make_study(subjects=subjects)), "subject-without-info")[0]
-    assert problem.value == "0019" and problem.file == "values.csv" and problem.row == 2 + 2 * 102
+    assert problem.file == "values.csv" and problem.row == 2 + 2 * 102
+    # the ID is in the subject field, which pseudonymisation replaces whole; not in the text
+    assert problem.subject == "0019" and problem.value is None and "0019" not in problem.detail
 
 
 def test_subject_in_subjects_but_not_in_values(make_study):
     subjects = [*small_subjects(), ["0020", "control", 1.5, 40]]
     problem = only(problems_of(make_study(subjects=subjects)), "subject-without-values")[0]
-    assert (problem.file, problem.row, problem.value) == ("subjects.csv", 5, "0020")
+    assert (problem.file, problem.row, problem.subject) == ("subjects.csv", 5, "0020")
+    assert problem.value is None and "0020" not in problem.detail
 
 
 def test_duplicate_subject_with_conflicting_groups(make_study):
@@ -399,7 +390,9 @@ def test_error_message_names_file_row_and_column(make_study):
     rows = small_values()
     rows[0][4] = "abc"
     with pytest.raises(
-        StudyError, match=r"values\.csv, row 2, column 'value': value is not a number"
+        StudyError,
+        match=r"values\.csv, row 2, column 'value', subject '0017', method 'ref': "
+        r"value is not a number",
     ):
         load_study(make_study(values=rows))
 
