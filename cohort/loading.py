@@ -3,6 +3,16 @@
 Every cell is read as text (nothing is converted, so ``0017`` stays ``0017`` and a value that
 is not a number can be reported exactly as written). Column names are trimmed and
 lower-cased. Each row keeps its spreadsheet row number in the column ``_row`` (header = row 1).
+
+What is refused rather than guessed, each problem naming file, row and column:
+
+- delimited text that is not UTF-8 (a UTF-8 byte-order mark is fine): the first byte that
+  does not decode is located by its line, and the file is never decoded as another encoding;
+  UTF-16 and UTF-32 (with a byte-order mark, or NUL bytes without one) are named as such;
+- cells holding a spreadsheet error value (:data:`ERROR_VALUES`, e.g. ``#N/A``,
+  ``#DIV/0!``), in any format: as error cells in a workbook, as text elsewhere;
+- workbook formula cells without a calculated value (a workbook written by a program that
+  never calculated it): the value is unknown, so it is not read as a blank.
 """
 
 from __future__ import annotations
@@ -10,8 +20,10 @@ from __future__ import annotations
 import csv
 import io
 import re
+from collections.abc import Iterator
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -22,6 +34,24 @@ ROW = "_row"
 """Column holding each row's spreadsheet row number."""
 
 READERS = {".csv": "csv", ".tsv": "tsv", ".txt": "tsv", ".xlsx": "xlsx", ".parquet": "parquet"}
+
+ERROR_VALUES = frozenset({"#NULL!", "#DIV/0!", "#VALUE!", "#REF!", "#NAME?", "#NUM!", "#N/A"})
+"""The cell error values of spreadsheets (ECMA-376 Office Open XML, Part 1, cell error
+values, and OpenDocument's formula errors; memory). Compared after trimming, ignoring case."""
+
+ERROR_VALUE_CODE = "spreadsheet-error"
+"""Problem code of a cell holding a spreadsheet error value."""
+UNCALCULATED_CODE = "formula-not-calculated"
+"""Problem code of a workbook formula cell without a calculated value."""
+ENCODING_CODE = "encoding"
+"""Problem code of a delimited file that is not UTF-8."""
+MAX_CELL_PROBLEMS = 20
+"""Cells with an error value or an uncalculated formula listed one by one per file; the rest
+are counted in one more problem."""
+
+_SAVE_AS_UTF8 = (
+    "UTF-8 text: save the file as UTF-8 (with or without a byte-order mark) and read it again"
+)
 
 
 @dataclass
@@ -90,6 +120,7 @@ def read_table(path: str | Path) -> RawTable:
             ]
         )
     warnings: list[Problem] = []
+    cell_problems: list[Problem] = []
     try:
         if kind in ("csv", "tsv"):
             frame = _read_delimited(path, "," if kind == "csv" else "\t")
@@ -108,6 +139,7 @@ def read_table(path: str | Path) -> RawTable:
                     )
                 )
             frame = sheets[first]
+            cell_problems = _workbook_cell_problems(path, first)
         else:
             frame = pd.read_parquet(path)
             frame = frame.copy(deep=False)
@@ -127,7 +159,122 @@ def read_table(path: str | Path) -> RawTable:
         raise StudyError([Problem("file-empty", "file has no data rows", file=name)])
     rows = np.arange(2, len(frame) + 2) if isinstance(numbers, range) else list(numbers)
     frame.insert(0, ROW, rows)
+    problems = _cap(cell_problems + _error_value_problems(frame, name, original), name)
+    if problems:
+        raise StudyError(problems)
     return RawTable(frame, name, original, units, warnings)
+
+
+def _error_value_problems(
+    frame: pd.DataFrame, name: str, original: dict[str, str]
+) -> list[Problem]:
+    """A problem for each text cell that is a spreadsheet error value (:data:`ERROR_VALUES`).
+
+    Workbook error cells are found by :func:`_workbook_cell_problems` (pandas reads them as
+    blanks); this finds the same values written as text (CSV, TSV, Parquet, text cells).
+    """
+    found: list[tuple[int, int, str, str]] = []
+    rows = frame[ROW].to_numpy()
+    for j, column in enumerate(frame.columns):
+        if column == ROW:
+            continue
+        cells = frame[column]
+        for position in np.flatnonzero(cells.str.contains("#", regex=False).to_numpy()):
+            text = cells.iloc[position]  # few cells hold '#': a loop over them only
+            if text.strip().upper() in ERROR_VALUES:
+                found.append((int(rows[position]), j, column, text))
+    found.sort(key=lambda item: (item[0], item[1]))
+    return [
+        Problem(
+            ERROR_VALUE_CODE,
+            f"the cell holds the spreadsheet error {text.strip().upper()}, not a value",
+            file=name,
+            row=row,
+            column=original.get(column, column),
+            value=text,
+            expected="a value (correct the formula or leave the cell empty for a missing value)",
+        )
+        for row, _, column, text in found
+    ]
+
+
+def _workbook_cell_problems(path: Path, sheet: str) -> list[Problem]:
+    """Error cells and formula cells without a calculated value in a workbook's sheet.
+
+    A formula's value is read from the value the spreadsheet program stored when it last
+    calculated the workbook; a workbook written by a program that never calculated it holds
+    the formula alone, which a reader sees as an empty cell. A formula whose stored result
+    is an empty text (type ``str``) is a calculated blank, not a problem.
+    """
+    from openpyxl import load_workbook
+    from openpyxl.utils import get_column_letter
+
+    def cells(data_only: bool) -> Iterator[Any]:
+        book = load_workbook(path, read_only=True, data_only=data_only)
+        try:
+            yield from book[sheet].iter_rows()
+        finally:
+            book.close()
+
+    problems: list[Problem] = []
+    header: dict[int, str] | None = None
+    for stored_row, formula_row in zip(cells(True), cells(False), strict=True):
+        if header is None:
+            if any(c.value is not None for c in stored_row):
+                header = {
+                    c.column: str(c.value).strip()
+                    for c in stored_row
+                    if c.value is not None and hasattr(c, "column")
+                }
+            continue
+        for stored, formula in zip(stored_row, formula_row, strict=True):
+            if not hasattr(stored, "row"):  # an empty cell of a row with gaps
+                continue
+            where = f"{get_column_letter(stored.column)}{stored.row}"
+            column = header.get(stored.column, get_column_letter(stored.column))
+            if stored.data_type == "e":
+                problems.append(
+                    Problem(
+                        ERROR_VALUE_CODE,
+                        f"cell {where} holds the spreadsheet error {stored.value}, not a value",
+                        file=path.name,
+                        row=stored.row,
+                        column=column,
+                        value=str(stored.value),
+                        expected="a value (correct the formula or leave the cell empty "
+                        "for a missing value)",
+                    )
+                )
+            elif formula.data_type == "f" and stored.value is None and stored.data_type != "str":
+                problems.append(
+                    Problem(
+                        UNCALCULATED_CODE,
+                        f"cell {where} holds a formula without a calculated value (the "
+                        "workbook was written by a program that did not calculate it)",
+                        file=path.name,
+                        row=stored.row,
+                        column=column,
+                        value=str(formula.value),
+                        expected="a value: open and save the workbook in a spreadsheet "
+                        "program, or replace the formula by its value",
+                    )
+                )
+    return problems
+
+
+def _cap(problems: list[Problem], name: str) -> list[Problem]:
+    """At most :data:`MAX_CELL_PROBLEMS` problems, then one that counts the rest."""
+    if len(problems) <= MAX_CELL_PROBLEMS:
+        return problems
+    rest = len(problems) - MAX_CELL_PROBLEMS
+    return [
+        *problems[:MAX_CELL_PROBLEMS],
+        Problem(
+            problems[MAX_CELL_PROBLEMS].code,
+            f"{rest} more cell(s) with a spreadsheet error or an uncalculated formula",
+            file=name,
+        ),
+    ]
 
 
 def _as_text(column: pd.Series) -> pd.Series:
@@ -152,10 +299,7 @@ def _as_text(column: pd.Series) -> pd.Series:
 
 def _read_delimited(path: Path, delimiter: str) -> pd.DataFrame:
     name = path.name
-    try:
-        text = path.read_text(encoding="utf-8-sig")
-    except UnicodeDecodeError:
-        text = path.read_text(encoding="latin-1")
+    text = _decode(path.read_bytes(), name)
     if not text.strip():
         raise StudyError([Problem("file-empty", "file is empty", file=name)])
     header = text.splitlines()[0]
@@ -234,6 +378,87 @@ def _read_delimited(path: Path, delimiter: str) -> pd.DataFrame:
     return frame
 
 
+_WIDE_BOMS = (
+    (b"\xff\xfe\x00\x00", "UTF-32"),  # before UTF-16 LE: same first two bytes
+    (b"\x00\x00\xfe\xff", "UTF-32"),
+    (b"\xff\xfe", "UTF-16"),
+    (b"\xfe\xff", "UTF-16"),
+)
+"""Byte-order marks of the encodings a spreadsheet program may save text as (Unicode
+Standard, section 23.8 'Specials', byte order mark; memory)."""
+
+
+def _decode(data: bytes, name: str) -> str:
+    """The text of a delimited file: UTF-8, with or without a byte-order mark, else refused.
+
+    Another encoding is never guessed (Latin-1 would decode anything, wrongly): the problem
+    names the line of the first byte that is not UTF-8, which is the row when no quoted cell
+    spans lines before it.
+    """
+    for bom, encoding in _WIDE_BOMS:
+        if data.startswith(bom):
+            raise StudyError(
+                [
+                    Problem(
+                        ENCODING_CODE,
+                        f"the file is {encoding} text (it starts with a {encoding} byte-order "
+                        "mark)",
+                        file=name,
+                        row=1,
+                        expected=_SAVE_AS_UTF8,
+                    )
+                ]
+            )
+    nul = data.find(b"\x00")
+    if nul >= 0:  # UTF-16 or UTF-32 without a byte-order mark, or not a text file
+        raise StudyError(
+            [
+                Problem(
+                    ENCODING_CODE,
+                    f"line {_line_of(data, nul)} holds a NUL byte (byte {nul + 1}): the file "
+                    "looks like UTF-16 or UTF-32 text, or is not a text file",
+                    file=name,
+                    row=_line_of(data, nul),
+                    expected=_SAVE_AS_UTF8,
+                )
+            ]
+        )
+    try:
+        return data.decode("utf-8-sig")
+    except UnicodeDecodeError as exc:
+        line = _line_of(data, exc.start)
+        raise StudyError(
+            [
+                Problem(
+                    ENCODING_CODE,
+                    f"line {line} is not UTF-8 text: byte {exc.start + 1} of the file "
+                    f"(0x{data[exc.start]:02X}) cannot be decoded (the file may be Latin-1 "
+                    "or Windows-1252 text)",
+                    file=name,
+                    row=line,
+                    value=_line_text(data, exc.start),
+                    expected=_SAVE_AS_UTF8,
+                )
+            ]
+        ) from None
+
+
+def _line_text(data: bytes, offset: int, width: int = 80) -> str:
+    """The line holding byte ``offset``, undecodable bytes shown as U+FFFD, cut to ``width``."""
+    start = max(data.rfind(b"\n", 0, offset), data.rfind(b"\r", 0, offset)) + 1
+    end = min(
+        (i for i in (data.find(b"\n", offset), data.find(b"\r", offset)) if i >= 0),
+        default=len(data),
+    )
+    return data[start:end].decode("utf-8", errors="replace")[:width]
+
+
+def _line_of(data: bytes, offset: int) -> int:
+    """The line (1 = first) holding byte ``offset``; CR LF, LF and a lone CR end a line."""
+    head = data[:offset]
+    return head.count(b"\n") + head.count(b"\r") - head.count(b"\r\n") + 1
+
+
 FAST_PLAIN_CSV = True
 """Read plain delimited files (:func:`_read_plain`) with pyarrow's parser; the tests switch
 it off to compare with the csv-module path."""
@@ -259,8 +484,11 @@ def _read_plain(text: str, delimiter: str) -> pd.DataFrame | None:
     for line in lines:
         if line.count(delimiter) != n_cells - 1 or not line.replace(delimiter, "").strip():
             return None
-    import pyarrow as pa
-    from pyarrow import csv as pa_csv
+    try:  # an optional speed-up: without pyarrow the csv module reads the file
+        import pyarrow as pa
+        from pyarrow import csv as pa_csv
+    except ImportError:
+        return None
 
     try:
         table = pa_csv.read_csv(

@@ -20,6 +20,7 @@ CATALOGUE: MappingProxyType[str, str] = MappingProxyType(
         "file-unreadable": "file cannot be read",
         "file-empty": "file has no data rows",
         "file-format": "file type not supported",
+        "encoding": "file is not UTF-8 text",
         "delimiter": "columns not separated by the expected delimiter",
         "study-file": "study file is invalid",
         "study-option": "study-file option is invalid",
@@ -33,6 +34,8 @@ CATALOGUE: MappingProxyType[str, str] = MappingProxyType(
         "duplicate-value": "value given twice for the same subject, method, segment, parameter",
         "not-numeric": "value is not a number",
         "not-finite": "value is infinite",
+        "spreadsheet-error": "cell holds a spreadsheet error value",
+        "formula-not-calculated": "workbook formula cell has no calculated value",
         "implausible-value": "value outside the plausible range",
         "unit-mismatch": "values look like another unit than the one declared",
         "t2star-r2star-conflict": "T2* and R2* both given and they disagree",
@@ -47,8 +50,11 @@ CATALOGUE: MappingProxyType[str, str] = MappingProxyType(
         "too-few-methods": "fewer than two methods in the values table",
         # warnings
         "whitespace-trimmed": "surrounding white space removed from identifiers",
+        "group-spelling": "group names differ only in case or spacing",
         "unit-in-text": "unit written next to a number was removed",
         "extra-sheets": "workbook has more than one sheet; only one was read",
+        "identifying-column-dropped": "extra column holding subject IDs left out of a "
+        "pseudonymised run",
     }
 )
 """Problem codes and their titles. Codes are stable: tests and users may match on them."""
