@@ -33,12 +33,14 @@ from matplotlib.text import Text
 
 from cohort.segments import RINGS, SEGMENTS, segment_model
 from cohort.style import (
+    LABEL_WIDTH,
     MISSING_COLOUR,
     MISSING_HATCH_COLOUR,
     MM_PER_INCH,
     ColourScale,
     colour_scale,
     figure_size,
+    fit_label,
     style_context,
     text_colour_for,
 )
@@ -410,7 +412,7 @@ def _key_handles(missing: bool, outline_label: str | None) -> list[Patch]:
                 facecolor="white",
                 edgecolor=OUTLINE_COLOUR,
                 linewidth=OUTLINE_WIDTH * 0.75,
-                label=outline_label,
+                label=fit_label(outline_label, width=2 * LABEL_WIDTH),
             )
         )
     return handles
@@ -624,9 +626,9 @@ def bullseye_grid(
             panels[cell] = panel
             show_col_title = col is not None and (i == 0 or col_wrap is not None)
             if show_col_title:
-                ax.set_title(str(cell[1]), pad=2.0)
+                ax.set_title(fit_label(cell[1]), pad=2.0)  # the caption names it in full
             if row is not None and j == 0:
-                ax.set_ylabel(str(cell[0]), labelpad=4.0, fontsize=8.0)
+                ax.set_ylabel(fit_label(cell[0]), labelpad=4.0, fontsize=8.0)
         for i in range(nrows):
             for j in range(ncols):
                 if (i, j) not in used:

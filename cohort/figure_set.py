@@ -24,6 +24,7 @@ study has more than one (:data:`FIELD_DEPENDENT_PARAMETERS`).
 
 from __future__ import annotations
 
+import hashlib
 import math
 import re
 import warnings
@@ -50,6 +51,7 @@ from .style import (
     FIGURE_WIDTHS_MM,
     MM_PER_INCH,
     figure_size,
+    fit_label,
     group_styles,
     save_figure,
     style_context,
@@ -226,10 +228,31 @@ _Item = _Drawn | SkippedFigure
 # --- small helpers ------------------------------------------------------------------------
 
 
+SLUG_MAX = 40
+"""Characters of a name kept in a file name; a longer or altered name gets a hash too."""
+
+
 def _slug(text: object) -> str:
-    """File-name-safe text: letters, digits, dot, minus and underscore kept; others to '-'."""
-    slug = re.sub(r"[^A-Za-z0-9._-]+", "-", str(text)).strip("-")
-    return slug or "x"
+    """File-name-safe text: letters, digits, dot, minus and underscore kept; others to '-'.
+
+    A name already made of those characters and at most :data:`SLUG_MAX` long is kept as
+    it is; any other is cut to :data:`SLUG_MAX` characters and followed by the first 8 hex
+    digits of the SHA-256 of the full name, so names that differ only in the characters
+    replaced or cut still give distinct file names.
+    """
+    name = str(text)
+    slug = re.sub(r"[^A-Za-z0-9._-]+", "-", name).strip("-.")
+    if slug == name and 0 < len(slug) <= SLUG_MAX:
+        return slug
+    digest = hashlib.sha256(name.encode("utf-8")).hexdigest()[:8]
+    return f"{slug[:SLUG_MAX].rstrip('-.')}-{digest}".lstrip("-")
+
+
+def _names_note(names: Sequence[object], where: str) -> str:
+    """The full names of the methods drawn shortened in a figure, for its caption."""
+    if all(fit_label(n) == str(n) for n in names):
+        return ""
+    return f" {where}: " + "; ".join(f"'{n}'" for n in names) + "."
 
 
 def _tesla(b0: float) -> str:
@@ -685,6 +708,7 @@ def _median_figures(study: Study) -> Iterator[_Item]:
                 f"(columns){where}. One {scale}, with the same limits in every panel and in "
                 f"every {_label(parameter)} map of this set; hatched: no data. Medians are "
                 "display summaries of each method's own values."
+                + _names_note(methods, "Columns, left to right")
                 + _strength_note(study, parameter, part, b0 is not None)
             )
             if parameter == "field":
@@ -753,7 +777,8 @@ def _difference_figures(study: Study) -> Iterator[_Item]:
                 col_order=[names[g] for g in groups],
                 width=_grid_width(len(groups)),
                 colorbar_label=(
-                    f"{method} \N{MINUS SIGN} {study.reference}\n"
+                    f"{fit_label(method, 24, 1)} \N{MINUS SIGN} "
+                    f"{fit_label(study.reference, 24, 1)}\n"
                     f"median difference ({_unit(parameter)})"
                 ),
                 **limits,
@@ -858,6 +883,7 @@ def _group_figures(study: Study) -> Iterator[_Item]:
             "of the available segments, formed here for display only; the group comparison "
             "statistics are in the groups table. Boxes: quartiles with whiskers to the "
             "furthest value within 1.5 IQR (Tukey); every subject drawn as a point."
+            + _names_note(methods, "Methods, in the order of the key")
             + _strength_note(study, parameter, part, strengths != [None])
         )
         yield _Drawn(
@@ -1118,6 +1144,7 @@ def _prevalence_figures(study: Study, tables: Mapping[str, pd.DataFrame]) -> Ite
             f"below {study.reference}'s in the same group are outlined in black "
             f"({n_outlined} here). Percentages are display summaries; detection statistics "
             "with their CIs are in the findings tables."
+            + _names_note(methods, "Columns, left to right")
         )
         yield _Drawn(
             key,
@@ -1391,10 +1418,11 @@ def _save(fig: Figure, stem: Path, formats: Sequence[str], dpi: float) -> tuple[
 
 
 def _unique(key: str, keys: set[str]) -> str:
-    """``key``, or ``key-2``, ``key-3``... when method names give the same file name."""
+    """``key``, or ``key-2``, ``key-3``... when method names give the same file name (compared
+    ignoring case, as case-insensitive file systems do)."""
     candidate, k = key, 1
-    while candidate in keys:
+    while candidate.casefold() in keys:
         k += 1
         candidate = f"{key}-{k}"
-    keys.add(candidate)
+    keys.add(candidate.casefold())
     return candidate

@@ -25,7 +25,7 @@ from matplotlib.lines import Line2D
 from matplotlib.patches import Patch
 
 from cohort.results import CohortWarning
-from cohort.style import LINE_COLOUR, figure_size, group_styles, style_context
+from cohort.style import LINE_COLOUR, figure_size, fit_label, group_styles, style_context
 from cohort.units import PARAMETERS
 
 DISTRIBUTION_KINDS = ("box", "violin")
@@ -159,7 +159,7 @@ def group_distribution_plot(
         tick_labels = []
         for i, g in enumerate(group_levels):
             in_group = groups == g
-            text = str(g)
+            text = fit_label(g)
             if count_subjects:
                 text += f"\n(n = {summary.loc[in_group, subject].nunique()})"
             tick_labels.append(text)
@@ -240,13 +240,15 @@ def group_distribution_plot(
                 )
                 for m in method_levels
             ]
+            labels = [fit_label(m) for m in method_levels]
+            wide = max(len(line) for text in labels for line in text.split("\n")) > 12
             ax.legend(
                 handles=handles,
-                labels=[str(m) for m in method_levels],
+                labels=labels,
                 handler_map={tuple: HandlerTuple(ndivide=None, pad=0.0)},
                 loc="lower left",
                 bbox_to_anchor=(0.0, 1.02),
-                ncols=min(4, len(handles)),
+                ncols=min(2 if wide else 4, len(handles)),
                 borderaxespad=0.0,
                 frameon=False,
             )
@@ -357,7 +359,7 @@ def paired_lines_plot(
                 )
         else:
             _line_collections(ax, wide, reference, test, subject_group, levels, styles, line_kwargs)
-        ax.set_xticks([0.0, 1.0], [str(reference), str(test)])
+        ax.set_xticks([0.0, 1.0], [fit_label(reference, 18, 3), fit_label(test, 18, 3)])
         ax.set_xlim(-0.25, 1.25)
         ax.set_ylabel(label)
         if group is not None:
@@ -370,7 +372,7 @@ def paired_lines_plot(
                     marker=styles[g][1],
                     linewidth=0.8,
                     markersize=3.5,
-                    label=f"{g} (n = {int(counts.get(g, 0))})",
+                    label=f"{fit_label(g)} (n = {int(counts.get(g, 0))})",
                 )
                 for g in levels
             ]

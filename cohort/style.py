@@ -9,6 +9,10 @@
 - Colour scales: sequential ``viridis`` for values, diverging ``RdBu_r`` with limits
   symmetric about zero for differences, a discrete ``YlGnBu`` (ColorBrewer, colour-blind
   safe) with a ``BoundaryNorm`` in 10-percent steps for prevalence in percent.
+- Names drawn in a figure (methods, groups, subjects) are fitted by :func:`fit_label`:
+  wrapped at spaces to :data:`LABEL_WIDTH` characters a line, at most
+  :data:`LABEL_LINES` lines, the rest cut with an ellipsis; captions and tables keep the
+  full name (common practice).
 - Text colour on a coloured fill: black or white, whichever has the higher contrast ratio by
   the WCAG 2.x definitions of relative luminance and contrast ratio (W3C, Web Content
   Accessibility Guidelines 2.1, 2018).
@@ -21,6 +25,7 @@ from __future__ import annotations
 
 import contextlib
 import math
+import textwrap
 from collections.abc import Iterable, Iterator, Sequence
 from dataclasses import dataclass
 from pathlib import Path
@@ -126,6 +131,51 @@ RC_PARAMS: MappingProxyType[str, object] = MappingProxyType(
     }
 )
 """Matplotlib settings of the house style, applied only inside :func:`style_context`."""
+
+
+LABEL_WIDTH = 28
+"""Characters a line of a name drawn in a figure (about 45 mm at 7 pt; common practice)."""
+LABEL_LINES = 2
+"""Lines a name drawn in a figure may take before it is cut with an ellipsis."""
+ELLIPSIS = "\N{HORIZONTAL ELLIPSIS}"
+
+
+def fit_label(text: object, width: int = LABEL_WIDTH, lines: int = LABEL_LINES) -> str:
+    """A name as drawn in a figure: wrapped, shortened with an ellipsis, safe from mathtext.
+
+    Each line of ``text`` is wrapped at spaces (long words broken) to ``width`` characters
+    and cut after ``lines`` lines with an ellipsis; a text that fits is kept as it is.
+    Dollar signs are escaped, since matplotlib reads text between two of them as a formula
+    (a name holding one would fail to draw or be drawn as math). The full name belongs in
+    the caption and the tables, never only in the figure.
+
+    Parameters
+    ----------
+    text
+        The name (anything, shown as ``str(text)``).
+    width, lines
+        Characters a line (at least 2) and lines a paragraph (at least 1).
+
+    Returns
+    -------
+    str
+        The text to draw; every line at most ``width`` characters (before escaping).
+    """
+    if width < 2 or lines < 1:
+        raise ValueError(f"width must be >= 2 and lines >= 1, got width={width}, lines={lines}")
+    fitted = []
+    for paragraph in str(text).split("\n"):
+        if len(paragraph) <= width:
+            fitted.append(paragraph)
+            continue
+        wrapped = textwrap.wrap(
+            " ".join(paragraph.split()), width, break_on_hyphens=False
+        )  # break_long_words (default): a name without spaces still fits
+        if len(wrapped) > lines:
+            last = wrapped[lines - 1]
+            wrapped = [*wrapped[: lines - 1], last[: width - 1].rstrip() + ELLIPSIS]
+        fitted.extend(wrapped)
+    return "\n".join(fitted).replace("$", r"\$")
 
 
 @contextlib.contextmanager

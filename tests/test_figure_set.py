@@ -510,3 +510,80 @@ def test_real_tables_of_the_package_are_drawn(study, tmp_path):
     assert "No CI bands" in first.caption
     (prevalence, *_) = list(figure_set._prevalence_figures(study, tables))
     assert prevalence.key == "bullseye_prevalence_hemorrhage_by_group_method"
+
+
+# --- long and awkward method names -----------------------------------------------------------
+# File names: at most 255 bytes per name on the common file systems (ext4, NTFS, APFS;
+# memory) and none of / \ : * ? " < > | (forbidden on Windows; memory).
+
+LONG_REFERENCE = (
+    "Reference multi-echo fit / 12 echoes: * \u00e9 water-fat model with R2* correction, "
+    + "long description " * 6
+).strip()  # the loader trims identifiers
+LONG_A = "Quick map: one breath-hold / vendor-neutral * with \u00fcmlauts $x$ and " + "x" * 150
+LONG_B = LONG_A[:-1] + "y"  # differs from LONG_A only in its last character
+
+
+@pytest.fixture(scope="module")
+def long_named(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("long")
+    write_demo(folder, n_subjects=12)
+    values = pd.read_csv(folder / "values.csv", dtype=str, keep_default_na=False)
+    test = values[values["method"] == "quickmap"]
+    other = test.assign(value=pd.to_numeric(test["value"]).mul(1.03).round(3))  # blank: NaN
+    renamed = pd.concat(
+        [
+            values[values["method"] == "reference-fit"].assign(method=LONG_REFERENCE),
+            test.assign(method=LONG_A),
+            other.assign(method=LONG_B),
+        ]
+    )
+    renamed.to_csv(folder / "values.csv", index=False)
+    toml = (folder / "study.toml").read_text(encoding="utf-8")
+    toml = toml.replace('reference = "reference-fit"', f'reference = "{LONG_REFERENCE}"')
+    (folder / "study.toml").write_text(toml, encoding="utf-8")
+    study = load_study(folder / "study.toml")
+    tables = {"agreement": fake_agreement(study), "findings_segment": fake_findings(study)}
+    out = tmp_path_factory.mktemp("long_figures")
+    records = make_figures(study, tables, out, formats=("png",), dpi=50)
+    return study, records, out
+
+
+def test_long_names_give_valid_distinct_file_names(long_named):
+    study, records, out = long_named
+    assert len(LONG_A) > 200 and len(LONG_REFERENCE) > 100
+    assert {LONG_A, LONG_B} == set(study.test_methods)
+    files = sorted(out.iterdir())
+    assert files == sorted(p for r in records for p in r.paths)  # every figure written
+    names = [p.name for p in files]
+    assert len({n.casefold() for n in names}) == len(names)
+    for name in names:
+        assert len(name.encode("utf-8")) <= 255, name
+        assert not set(name) & set('/\\:*?"<>| $'), name
+        assert name.isascii(), name
+    for prefix in ("bland_altman_ff_", "scatter_r2star_", "paired_ff_subject_mean_"):
+        assert sum(n.startswith(prefix) for n in names) == 2, prefix  # one per test method
+
+
+def test_long_names_are_in_full_in_the_captions_and_records(long_named):
+    _, records, _ = long_named
+    per_method = [r for r in records if r.method is not None]
+    assert {r.method for r in per_method} == {LONG_A, LONG_B}
+    for record in per_method:
+        assert record.method in record.caption, record.key
+    maps = by_key(records)["bullseye_median_ff_by_group_method"]
+    for name in (LONG_REFERENCE, LONG_A, LONG_B):
+        assert f"'{name}'" in maps.caption
+
+
+def test_long_names_are_shortened_in_the_drawn_text(study, tmp_path):
+    from cohort.style import ELLIPSIS, LABEL_WIDTH, fit_label
+
+    fitted = fit_label(LONG_A)
+    assert fitted.endswith(ELLIPSIS)
+    assert fit_label("a $x$ b") == "a \\$x\\$ b"  # escaped: not read as mathtext
+    assert all(len(line) <= LABEL_WIDTH for line in fitted.replace("\\$", "$").split("\n"))
+    assert fit_label("quickmap") == "quickmap"
+    assert figure_set._slug("quickmap") == "quickmap"  # short plain names unchanged
+    assert figure_set._slug(LONG_A) != figure_set._slug(LONG_B)
+    assert figure_set._slug("a/b") != figure_set._slug("a:b")  # both slug to "a-b"
