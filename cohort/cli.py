@@ -7,11 +7,16 @@ traceback), 1 on an unexpected internal failure.
 from __future__ import annotations
 
 import argparse
+import os
+import signal
 import sys
+import tempfile
 import warnings
 from collections.abc import Sequence
+from pathlib import Path
 
 from .cautions import CAUTION
+from .destination import OutputFolderError, check_destination
 from .problems import StudyError, format_problems
 from .settings import StudySettings, build_settings, read_study_file
 from .study import load_study
@@ -72,29 +77,85 @@ def cmd_check(args: argparse.Namespace) -> int:
     return 0
 
 
+def _input_paths(settings: StudySettings, *extra: str | None) -> list[Path]:
+    """Every file a run reads: none of them may be written or sit inside ``--out``."""
+    paths = [settings.values, settings.subjects, settings.study_file, *extra]
+    return [Path(p) for p in paths if p]
+
+
+EARLIER_CODE_LIST_COLUMNS = ("subject", "code")
+"""The columns of code lists written by cohort 0.1 before identifying columns were coded."""
+
+
+def _is_code_list(path: Path) -> bool:
+    """Whether ``path`` is a code list written by ``cohort run --pseudonymize`` (by its
+    header): the only kind of existing file that a new code list may replace."""
+    from .pseudonyms import CODE_LIST_COLUMNS
+
+    try:
+        with path.open(encoding="utf-8") as handle:
+            header = tuple(handle.readline().strip().split(","))
+    except (OSError, UnicodeDecodeError):
+        return False
+    return header in (tuple(CODE_LIST_COLUMNS), EARLIER_CODE_LIST_COLUMNS)
+
+
+def _code_list_path(args: argparse.Namespace, inputs: list[Path]) -> Path:
+    """Where the code list goes, checked: outside ``--out``, not an input, and replacing
+    nothing but an earlier code list."""
+    out = Path(os.path.abspath(args.out))
+    path = Path(os.path.abspath(args.code_list or out.with_name(f"{out.name}-pseudonym-codes.csv")))
+    real = Path(os.path.realpath(path))
+    if Path(os.path.realpath(out)) in (real, *real.parents):
+        raise OutputFolderError("--code-list must be outside the output folder")
+    if any(Path(os.path.realpath(p)) == real for p in inputs):
+        raise OutputFolderError(f"--code-list {str(path)!r} is an input file; give a new file")
+    if path.is_symlink() or (path.exists() and not path.is_file()):
+        raise OutputFolderError(f"--code-list {str(path)!r} exists and is not a plain file")
+    if path.exists() and not _is_code_list(path):
+        raise OutputFolderError(
+            f"--code-list {str(path)!r} exists and is not an earlier code list (by its "
+            "header); it is left as it is: give a new file"
+        )
+    return path
+
+
+def _write_code_list(codes, path: Path) -> None:
+    """Write the code list without ever replacing another file: a new file appears whole
+    (a hard link of a finished temporary file, which fails if the name was taken meanwhile);
+    an existing one is replaced only while it is still an earlier code list."""
+    path.parent.mkdir(parents=True, exist_ok=True)
+    handle, temporary = tempfile.mkstemp(prefix=f".{path.name}.", dir=path.parent)
+    os.close(handle)
+    try:
+        codes.to_csv(temporary, index=False)
+        if path.exists():
+            if not _is_code_list(path):
+                raise OutputFolderError(f"--code-list {str(path)!r} changed during the run")
+            os.replace(temporary, path)
+        else:
+            os.link(temporary, path)
+    except FileExistsError:
+        raise OutputFolderError(
+            f"--code-list {str(path)!r} appeared during the run; it is left as it is"
+        ) from None
+    finally:
+        Path(temporary).unlink(missing_ok=True)
+
+
 def cmd_run(args: argparse.Namespace) -> int:
-    from .outputs import OutputExistsError
     from .pipeline import options_from_study
     from .runner import run
 
     settings = settings_from_args(args)
+    inputs = _input_paths(settings, args.key_file)
+    check_destination(args.out, inputs, force=args.force)  # before any work
+    codes_path = _code_list_path(args, inputs) if args.pseudonymize else None
     study = load_study(settings)
-    codes_path = None
     if args.pseudonymize:
-        from pathlib import Path
-
         from .pseudonyms import load_key, pseudonymize_study
 
         study, codes = pseudonymize_study(study, load_key(args.key_file))
-        out = Path(args.out).resolve()
-        codes_path = (
-            Path(args.code_list).resolve()
-            if args.code_list
-            else out.with_name(f"{out.name}-pseudonym-codes.csv")
-        )
-        if out == codes_path.parent or out in codes_path.parents:
-            print("cohort: --code-list must be outside the output folder", file=sys.stderr)
-            return 2
     options = options_from_study(
         study,
         seed=args.seed,
@@ -107,21 +168,17 @@ def cmd_run(args: argparse.Namespace) -> int:
         if not args.quiet:
             print(f"[cohort] {message} ...", file=sys.stderr, flush=True)
 
-    try:
-        summary = run(
-            study,
-            args.out,
-            options,
-            force=args.force,
-            progress=progress,
-            pseudonymized=args.pseudonymize,
-        )
-    except OutputExistsError as exc:
-        print(f"cohort: {exc}", file=sys.stderr)
-        return 2
+    summary = run(
+        study,
+        args.out,
+        options,
+        force=args.force,
+        progress=progress,
+        pseudonymized=args.pseudonymize,
+        protect=inputs,
+    )
     if codes_path is not None:
-        codes_path.parent.mkdir(parents=True, exist_ok=True)
-        codes.to_csv(codes_path, index=False)
+        _write_code_list(codes, codes_path)
         print(f"  pseudonym code list (keep it apart from the report): {codes_path}")
     print(summary.text())
     print(f"\n{CAUTION}")
@@ -129,13 +186,14 @@ def cmd_run(args: argparse.Namespace) -> int:
 
 
 def cmd_demo(args: argparse.Namespace) -> int:
-    from pathlib import Path
-
-    from .demo import write_demo
+    from .demo import is_demo_folder, write_demo
 
     folder = Path(args.folder)
-    if folder.exists() and any(folder.iterdir()) and not args.force:
-        print(f"cohort: {str(folder)!r} is not empty; give --force to overwrite", file=sys.stderr)
+    if folder.is_dir() and any(folder.iterdir()) and is_demo_folder(folder) and not args.force:
+        print(
+            f"cohort: {str(folder)!r} holds an earlier demo; give --force to write it again",
+            file=sys.stderr,
+        )
         return 2
     study_file = write_demo(folder, n_subjects=args.subjects, seed=args.seed)
     print(f"wrote an invented demo cohort to {folder} (see {study_file.name}); no real data")
@@ -176,7 +234,11 @@ def build_parser() -> argparse.ArgumentParser:
         help="processes for the agreement statistics and figures (default: one per core, "
         "at most 4; results are the same for any number)",
     )
-    run.add_argument("--force", action="store_true", help="replace a non-empty output folder")
+    run.add_argument(
+        "--force",
+        action="store_true",
+        help="replace the output of an earlier cohort run (never a folder holding anything else)",
+    )
     run.add_argument("--quiet", action="store_true", help="no progress messages")
     run.add_argument(
         "--pseudonymize",
@@ -194,7 +256,9 @@ def build_parser() -> argparse.ArgumentParser:
     demo.add_argument("folder")
     demo.add_argument("--subjects", type=int, default=48)
     demo.add_argument("--seed", type=int, default=20261202)
-    demo.add_argument("--force", action="store_true")
+    demo.add_argument(
+        "--force", action="store_true", help="write again over an earlier demo (nothing else)"
+    )
     demo.set_defaults(func=cmd_demo)
     return parser
 
@@ -215,6 +279,18 @@ def main(argv: Sequence[str] | None = None) -> int:
         print(format_problems(exc.problems), file=sys.stderr)
         print("\nThe study is not usable; nothing was written.", file=sys.stderr)
         return 2
+    except OutputFolderError as exc:
+        print(f"cohort: {exc}", file=sys.stderr)
+        print("Nothing was written or removed.", file=sys.stderr)
+        return 2
+    except KeyboardInterrupt as exc:
+        signum = getattr(exc, "signum", signal.SIGINT)
+        print(
+            f"cohort: interrupted ({signal.Signals(signum).name}); the partial output was "
+            "removed and nothing else was touched",
+            file=sys.stderr,
+        )
+        return 128 + signum
     except SystemExit as exc:
         if isinstance(exc.code, str):
             print(exc.code, file=sys.stderr)

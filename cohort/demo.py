@@ -180,9 +180,37 @@ referencing = "subject-median"
 """
 
 
-def write_demo(folder: str | Path, n_subjects: int = 48, seed: int = 20261202) -> Path:
-    """Write the demo cohort (values.csv, subjects.csv, lesions.csv, study.toml) to ``folder``."""
+DEMO_FILES = ("values.csv", "subjects.csv", "planted_lesions.csv", "study.toml")
+"""The files :func:`write_demo` writes."""
+
+
+def is_demo_folder(folder: str | Path) -> bool:
+    """Whether ``folder`` holds nothing but an earlier demo (its files, and the demo's own
+    study file unchanged): the only non-empty folder :func:`write_demo` may write into."""
     folder = Path(folder)
+    names = {p.name for p in folder.iterdir()}
+    study = folder / "study.toml"
+    return (
+        names <= set(DEMO_FILES)
+        and not any((folder / n).is_symlink() or not (folder / n).is_file() for n in names)
+        and study.is_file()
+        and study.read_text(encoding="utf-8") == STUDY_TOML
+    )
+
+
+def write_demo(folder: str | Path, n_subjects: int = 48, seed: int = 20261202) -> Path:
+    """Write the demo cohort (values.csv, subjects.csv, planted_lesions.csv, study.toml) to
+    ``folder``: a new or empty folder, or one holding an earlier demo (:func:`is_demo_folder`);
+    anything else raises :class:`~cohort.destination.OutputExistsError`."""
+    from .destination import OutputExistsError
+
+    folder = Path(folder)
+    if folder.exists() and (not folder.is_dir() or folder.is_symlink()):
+        raise OutputExistsError(f"{str(folder)!r} is not a folder")
+    if folder.is_dir() and any(folder.iterdir()) and not is_demo_folder(folder):
+        raise OutputExistsError(
+            f"{str(folder)!r} holds files that are not an earlier cohort demo; give a new folder"
+        )
     folder.mkdir(parents=True, exist_ok=True)
     demo = make_demo(n_subjects, seed)
     demo.values.to_csv(folder / "values.csv", index=False)

@@ -1,7 +1,7 @@
 """Writing a run's outputs: the I/O edge at the far end.
 
-An output folder is written into a temporary sibling folder and moved into place at the end,
-so an interrupted run leaves no half report. Tables go to ``tables/<name>.csv`` and to one
+Which folder a run may write, and how it is moved into place, is :mod:`cohort.destination`.
+Tables go to ``tables/<name>.csv`` and to one
 ``tables.xlsx`` with a sheet per table. Text cells that a spreadsheet program would read as
 a formula (starting with ``=``, ``+``, ``-``, ``@``, a tab or a carriage return) are written
 with a leading apostrophe (OWASP, "CSV Injection"); numbers stay numbers.
@@ -25,7 +25,6 @@ import hashlib
 import math
 import re
 import shutil
-import tempfile
 import warnings
 import zipfile
 from collections.abc import Callable, Mapping, Sequence
@@ -46,10 +45,6 @@ EXCEL_MAX_TEXT = 32_767
 """Characters of an Excel cell; openpyxl truncates longer text to this length."""
 
 
-class OutputExistsError(FileExistsError):
-    """The output folder exists and is not empty, and ``force`` was not given."""
-
-
 def sha256(path: str | Path) -> str:
     """SHA-256 of a file's bytes, as hex."""
     digest = hashlib.sha256()
@@ -59,39 +54,25 @@ def sha256(path: str | Path) -> str:
     return digest.hexdigest()
 
 
-def staging_folder(out: str | Path, force: bool) -> Path:
-    """Check ``out`` and return an empty temporary folder beside it to write into."""
-    out = Path(out)
-    if out.exists() and (not out.is_dir() or any(out.iterdir())) and not force:
-        raise OutputExistsError(
-            f"output folder {str(out)!r} exists and is not empty; give --force to replace it"
-        )
-    out.parent.mkdir(parents=True, exist_ok=True)
-    return Path(tempfile.mkdtemp(prefix=f".{out.name}-partial-", dir=out.parent))
-
-
-def publish(staging: Path, out: str | Path) -> Path:
-    """Move the finished staging folder to ``out`` (replacing it when it exists)."""
-    out = Path(out)
-    if out.exists():
-        backup = out.with_name(f".{out.name}-old")
-        if backup.exists():
-            shutil.rmtree(backup)
-        out.rename(backup)
-        staging.rename(out)
-        shutil.rmtree(backup) if backup.is_dir() else backup.unlink()
-    else:
-        staging.rename(out)
-    return out
-
-
 def guard_text(frame: pd.DataFrame) -> pd.DataFrame:
     """Copy of ``frame`` where text cells that look like formulas start with an apostrophe."""
     # A shallow copy suffices: columns are replaced, never written into (copy-on-write).
     guarded = frame.copy(deep=False)
     for column in range(guarded.shape[1]):
         series = guarded.iloc[:, column]
-        if series.dtype == object or pd.api.types.is_string_dtype(series):
+        if isinstance(series.dtype, pd.CategoricalDtype):
+            # guard each category once; the column keeps its dtype and order
+            categories = pd.Series(series.cat.categories)
+            risky = _formula_like(categories)
+            if risky.any():
+                renamed = categories.astype(object).where(~risky, "'" + categories.astype(str))
+                guarded.isetitem(
+                    column,
+                    series.cat.rename_categories(renamed.tolist())
+                    if renamed.is_unique
+                    else series.astype(object).map(dict(zip(categories, renamed, strict=True))),
+                )
+        elif series.dtype == object or pd.api.types.is_string_dtype(series):
             risky = _formula_like(series)
             if risky.any():
                 guarded.isetitem(column, series.where(~risky, "'" + series.astype("string")))

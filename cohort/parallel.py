@@ -13,6 +13,7 @@ from __future__ import annotations
 import functools
 import multiprocessing
 import os
+import signal
 import sys
 import warnings
 from collections.abc import Callable, Iterable
@@ -50,6 +51,16 @@ def can_fork() -> bool:
     return sys.platform.startswith("linux") and "fork" in multiprocessing.get_all_start_methods()
 
 
+def _worker_start() -> None:
+    """In each worker: the parent alone answers Ctrl-C (SIGINT goes to the whole foreground
+    process group) and ends the workers; SIGTERM ends a worker at once; one BLAS thread."""
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    signal.signal(signal.SIGTERM, signal.SIG_DFL)
+    if hasattr(signal, "SIGHUP"):
+        signal.signal(signal.SIGHUP, signal.SIG_DFL)
+    _single_threaded()
+
+
 def _single_threaded() -> None:
     try:
         from threadpoolctl import threadpool_limits
@@ -74,14 +85,40 @@ def ordered_map(
         done = [job(item) for item in items]
     else:
         context = multiprocessing.get_context("fork")
-        with ProcessPoolExecutor(n, mp_context=context, initializer=_single_threaded) as pool:
-            done = list(pool.map(job, items))
+        pool = ProcessPoolExecutor(n, mp_context=context, initializer=_worker_start)
+        try:
+            # futures are never cancelled: Python 3.11's pool then fails on a cancelled
+            # future when its workers are ended (it marks each pending one broken instead)
+            futures = [pool.submit(job, item) for item in items]
+            done = [future.result() for future in futures]
+        except BaseException:
+            _end_workers(pool)  # an error or an interruption: no worker outlives this call
+            pool.shutdown(wait=True)
+            raise
+        pool.shutdown(wait=True)
     results = []
     for result, caught in done:
         for category, message in caught:
             warnings.warn(message, category, stacklevel=2)
         results.append(result)
     return results
+
+
+def _end_workers(pool: ProcessPoolExecutor) -> None:
+    """Terminate the pool's worker processes and wait for them to end."""
+    terminate = getattr(pool, "terminate_workers", None)  # Python 3.14
+    if terminate is not None:
+        terminate()
+        return
+    processes = list((getattr(pool, "_processes", None) or {}).values())
+    for process in processes:
+        if process.is_alive():
+            process.terminate()
+    for process in processes:
+        process.join(timeout=10)
+        if process.is_alive():  # pragma: no cover - SIGTERM is not ignored by workers
+            process.kill()
+            process.join()
 
 
 def _capturing(func: Callable[[Item], Result], item: Item):

@@ -10,20 +10,22 @@ Layout of the folder::
     figures/*.png|svg  every figure (PNG at 300 dpi and SVG)
 
 The folder is written beside its final place and moved there at the end, so an interrupted
-run leaves no half report; an existing non-empty folder is replaced only with ``force``.
+run leaves no half report. Which folders may be written or replaced, and how, is the rule of
+:mod:`cohort.destination`: never an input or a folder holding one, and with ``force`` only
+the output of an earlier run.
 """
 
 from __future__ import annotations
 
-import shutil
-from collections.abc import Callable
+from collections.abc import Callable, Iterable
 from dataclasses import dataclass
 from datetime import UTC, datetime
 from pathlib import Path
 
+from .destination import OutputFolderError, raise_if_interrupted, writing_to
 from .manifest import build_manifest, write_manifest
 from .methods_text import methods_markdown
-from .outputs import publish, sha256, staging_folder, write_tables
+from .outputs import sha256, write_tables
 from .parallel import resolve_workers
 from .pipeline import Analysis, RunOptions, analyse
 from .report import render_report
@@ -43,6 +45,8 @@ class RunSummary:
     n_tables: int
     n_figures: int
     alerts: tuple[str, ...]
+    kept: Path | None = None
+    """Where files found in a replaced earlier output, and not written by it, were kept."""
 
     def text(self) -> str:
         study = self.analysis.study
@@ -59,6 +63,10 @@ class RunSummary:
         else:
             lines.append("  no deceptive-agreement or swap warning")
         lines.append(f"  report: {self.report}")
+        if self.kept is not None:
+            lines.append(
+                f"  files that appeared in the replaced earlier output were kept in {self.kept}"
+            )
         return "\n".join(lines)
 
 
@@ -74,9 +82,20 @@ def run(
     force: bool = False,
     progress: Progress | None = None,
     pseudonymized: bool = False,
+    protect: Iterable[str | Path] = (),
 ) -> RunSummary:
-    """Run the whole study and write the output folder ``out``; see the module docstring."""
-    say = progress or (lambda message: None)
+    """Run the whole study and write the output folder ``out``; see the module docstring.
+
+    ``out`` is checked before the analysis (:func:`cohort.destination.check_destination`)
+    against the study's input files and ``protect`` (other files the caller read, such as a
+    key file); :class:`~cohort.destination.OutputFolderError` says why a folder is refused.
+    """
+    tell = progress or (lambda message: None)
+
+    def say(message: str) -> None:
+        raise_if_interrupted()  # between stages: a signal is never lost
+        tell(message)
+
     started = _now()
     study = source if isinstance(source, Study) else load_study(source)
     if options is None:
@@ -87,8 +106,8 @@ def run(
     if study.settings.study_file:
         inputs["study_file"] = study.settings.study_file
     before = {k: sha256(p) for k, p in inputs.items()}
-    staging = staging_folder(out, force)
-    try:
+    with writing_to(out, [*inputs.values(), *protect], force=force) as destination:
+        staging = destination.staging
         analysis = analyse(study, options, progress=say)
         say("writing tables")
         written = write_tables(analysis.tables, staging, workers=options.workers)
@@ -107,8 +126,12 @@ def run(
         (staging / "methods.md").write_text(methods, encoding="utf-8")
         after = {k: sha256(p) for k, p in inputs.items()}
         if after != before:
-            raise RuntimeError("an input file changed while the run read it; run again")
-        outputs = [str(p.relative_to(staging)) for p in staging.rglob("*") if p.is_file()]
+            changed = ", ".join(k for k in inputs if before[k] != after[k])
+            raise OutputFolderError(
+                f"an input changed while the run read it ({changed}); nothing was written: "
+                "run again when the files are final"
+            )
+        outputs = [p.relative_to(staging).as_posix() for p in staging.rglob("*") if p.is_file()]
         outputs += ["report.html", "manifest.json"]
         manifest = build_manifest(
             inputs=inputs,
@@ -132,10 +155,8 @@ def run(
         report = render_report(analysis, records, methods, manifest)
         (staging / "report.html").write_text(report, encoding="utf-8")
         write_manifest(manifest, staging / "manifest.json")
-        final = publish(staging, out)
-    except BaseException:
-        shutil.rmtree(staging, ignore_errors=True)
-        raise
+        final = destination.publish()
+        kept = destination.kept
     n_tables = sum(1 for p in written if p.suffix == ".csv")
     return RunSummary(
         final,
@@ -144,4 +165,5 @@ def run(
         n_tables,
         len(records),
         tuple(analysis.alerts),
+        kept,
     )

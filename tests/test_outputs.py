@@ -9,7 +9,7 @@ import pandas as pd
 import pytest
 
 from cohort import outputs
-from cohort.outputs import OutputExistsError, guard_text, publish, staging_folder, write_tables
+from cohort.outputs import guard_text, write_tables
 from cohort.parallel import can_fork
 
 
@@ -41,19 +41,6 @@ def test_csv_and_xlsx_cells_are_guarded(tmp_path):
     assert sheet["B2"].value == -0.5 and sheet["B2"].data_type == "n"
 
 
-def test_staging_refuses_a_non_empty_folder_and_publish_replaces(tmp_path):
-    out = tmp_path / "out"
-    out.mkdir()
-    (out / "old.txt").write_text("old")
-    with pytest.raises(OutputExistsError):
-        staging_folder(out, force=False)
-    staging = staging_folder(out, force=True)
-    (staging / "new.txt").write_text("new")
-    publish(staging, out)
-    assert [p.name for p in out.iterdir()] == ["new.txt"]
-    assert [p.name for p in tmp_path.iterdir()] == ["out"]
-
-
 @pytest.mark.skipif(not can_fork(), reason="worker processes are forked on Linux only")
 @pytest.mark.parametrize("rows_per_piece", [250_000, 4])
 def test_two_workers_write_the_same_files(tmp_path, monkeypatch, rows_per_piece):
@@ -82,3 +69,56 @@ def test_two_workers_write_the_same_files(tmp_path, monkeypatch, rows_per_piece)
                 assert za.namelist() == zb.namelist()
                 for name in za.namelist():
                     assert za.read(name) == zb.read(name), name
+
+
+def test_categorical_cells_are_guarded_and_keep_their_dtype(tmp_path):
+    # study tables hold repeated text as categoricals; OWASP "CSV Injection": a cell starting
+    # with = + - @ is prefixed with an apostrophe, a negative number written as text is not
+    frame = pd.DataFrame(
+        {
+            "method": pd.Categorical(["=cmd|' /C calc'!A0", "ok", "+fast", "@sum", "-1.5", None]),
+            "bias": [0.5, 1.0, 1.5, 2.0, 2.5, 3.0],
+        }
+    )
+    guarded = guard_text(frame)
+    assert isinstance(guarded["method"].dtype, pd.CategoricalDtype)
+    assert guarded["method"].tolist()[:5] == [
+        "'=cmd|' /C calc'!A0",
+        "ok",
+        "'+fast",
+        "'@sum",
+        "-1.5",
+    ]
+    assert pd.isna(guarded["method"].iloc[5])
+    assert frame["method"].tolist()[0] == "=cmd|' /C calc'!A0"  # the input is not changed
+    write_tables({"agreement": frame}, tmp_path)
+    csv = pd.read_csv(tmp_path / "tables" / "agreement.csv", dtype=str, keep_default_na=False)
+    assert csv["method"].tolist() == ["'=cmd|' /C calc'!A0", "ok", "'+fast", "'@sum", "-1.5", ""]
+
+
+def test_a_study_with_formula_like_names_runs_and_is_guarded(tmp_path):
+    # subject, method and group names that a spreadsheet would read as formulas: the run
+    # completes (it once crashed after the analysis) and every table cell is guarded
+    from cohort.demo import write_demo
+    from cohort.pipeline import options_from_study
+    from cohort.runner import run
+    from cohort.study import load_study
+
+    study_file = write_demo(tmp_path / "study", n_subjects=6)
+    values = pd.read_csv(study_file.parent / "values.csv", dtype=str, keep_default_na=False)
+    subjects = pd.read_csv(study_file.parent / "subjects.csv", dtype=str, keep_default_na=False)
+    first = values["subject"].iloc[0]
+    values["subject"] = values["subject"].replace({first: "=1+1"})
+    subjects["subject"] = subjects["subject"].replace({first: "=1+1"})
+    values["method"] = values["method"].replace({"quickmap": "+quick"})
+    values.to_csv(study_file.parent / "values.csv", index=False)
+    subjects.to_csv(study_file.parent / "subjects.csv", index=False)
+    study = load_study(study_file)
+    summary = run(study, tmp_path / "out", options_from_study(study, n_boot=0, figures=False))
+    for path in (summary.out / "tables").glob("*.csv"):
+        table = pd.read_csv(path, dtype=str, keep_default_na=False)
+        for column in table.columns:
+            cells = table[column]
+            assert not cells.isin(["=1+1", "+quick"]).any(), (path.name, column)
+    agreement = pd.read_csv(summary.out / "tables" / "agreement.csv", dtype=str)
+    assert set(agreement["method"]) == {"'+quick"}

@@ -16,7 +16,7 @@ import pytest
 
 from cohort.cli import main
 from cohort.demo import write_demo
-from cohort.outputs import OutputExistsError
+from cohort.destination import OutputExistsError
 from cohort.parallel import resolve_workers
 from cohort.pipeline import options_from_study
 from cohort.runner import run
@@ -118,32 +118,21 @@ def test_another_seed_changes_only_bootstrap_intervals(demo_run, tmp_path):
     assert not a["bias_ci_low"].equals(b["bias_ci_low"])
 
 
-def test_refuses_a_non_empty_folder_without_force(demo_run, tmp_path):
+def test_refuses_a_folder_holding_other_files_even_with_force(demo_run, tmp_path):
+    # the user's files are never deleted: --force replaces only an earlier cohort output
+    # (tests/test_destination.py covers every case)
     study_file, _ = demo_run
     out = tmp_path / "busy"
     out.mkdir()
     (out / "keep.txt").write_text("mine")
-    with pytest.raises(OutputExistsError, match="--force"):
+    with pytest.raises(OutputExistsError, match="did not write"):
         run(study_file, out, options_from_study(load_study(study_file), n_boot=0, figures=False))
-    assert (out / "keep.txt").read_text() == "mine"
-    code = main(
-        ["run", str(study_file), "--out", str(out), "--bootstrap", "0", "--no-figures", "--quiet"]
-    )
-    assert code == 2 and (out / "keep.txt").exists()
-    code = main(
-        [
-            "run",
-            str(study_file),
-            "--out",
-            str(out),
-            "--bootstrap",
-            "0",
-            "--no-figures",
-            "--quiet",
-            "--force",
-        ]
-    )
-    assert code == 0 and not (out / "keep.txt").exists() and (out / "report.html").exists()
+    for force in ([], ["--force"]):
+        args = ["--out", str(out), "--bootstrap", "0", "--no-figures", "--quiet", *force]
+        code = main(["run", str(study_file), *args])
+        assert code == 2
+        assert [p.name for p in out.iterdir()] == ["keep.txt"]
+        assert (out / "keep.txt").read_text() == "mine"
 
 
 def test_an_interrupted_run_leaves_no_half_report(demo_run, tmp_path, monkeypatch):

@@ -1,0 +1,416 @@
+"""Where a run writes: output folders that cannot hurt anything the user holds.
+
+The rules, checked before any analysis and again at the final move:
+
+1. ``out`` must not be an input file, hold an input, be an ancestor of an input, be the
+   current folder or one of its ancestors, be a file or be a symbolic link; its parent must
+   be a folder this process can write in (the staging folder is really created there).
+2. An existing folder is used only when it is empty or, with ``force``, when it is the output
+   of an earlier ``cohort run``: it holds a ``manifest.json`` written by cohort and nothing
+   but the files that manifest lists. Anything else is refused, with or without ``force``.
+3. From the first check to the final move a run holds an exclusive lock (``flock``) on
+   ``.<name>.cohort-lock`` beside ``out``: a second run on the same folder is refused at once.
+4. Everything is written into a hidden staging folder beside ``out``
+   (``.<name>.cohort-partial-*``) and moved into place by one ``rename``, which fails rather
+   than replace a folder that appeared during the run with something in it.
+5. An earlier output replaced with ``force`` is moved aside, then the files its manifest
+   lists are removed one by one; anything else found in it by then is kept in a visible
+   folder ``<name>.kept-<time>``, never deleted.
+
+An interrupted run (an exception, ``SIGINT``, ``SIGTERM``, ``SIGHUP``) removes its staging
+folder, the lock and the parent folders it created, and leaves ``out`` as it was.
+"""
+
+from __future__ import annotations
+
+import errno
+import json
+import os
+import shutil
+import signal
+import sys
+import tempfile
+import threading
+from collections.abc import Iterable, Iterator
+from contextlib import contextmanager
+from datetime import UTC, datetime
+from pathlib import Path
+
+MARKER = "manifest.json"
+"""The file by which an earlier run's output folder is recognised (with ``"tool": "cohort"``
+and the list of the files it wrote)."""
+
+try:  # POSIX: a lock the kernel releases when the process dies, so no lock is ever stale
+    import fcntl
+except ImportError:  # pragma: no cover - Windows
+    fcntl = None  # type: ignore[assignment]
+
+
+class OutputFolderError(Exception):
+    """``out`` cannot be written safely; the message says why and what to do."""
+
+
+class OutputExistsError(OutputFolderError, FileExistsError):
+    """``out`` exists and holds files (an earlier cohort output without ``force``, or files
+    cohort did not write)."""
+
+
+class RunInterrupted(KeyboardInterrupt):
+    """The run received ``SIGTERM`` or ``SIGHUP``; like ``KeyboardInterrupt`` for ``SIGINT``."""
+
+    def __init__(self, signum: int) -> None:
+        self.signum = signum
+        super().__init__(f"interrupted by {signal.Signals(signum).name}")
+
+
+_RECEIVED: list[int] = []
+"""Signals received while a run was writing (a handler's exception can be swallowed where
+Python ignores exceptions, e.g. in fork hooks; this record is not)."""
+
+
+def raise_if_interrupted() -> None:
+    """Raise :class:`RunInterrupted` if a signal arrived while a destination was open."""
+    if _RECEIVED:
+        raise RunInterrupted(_RECEIVED[0])
+
+
+def _real(path: str | Path) -> Path:
+    return Path(os.path.realpath(path))
+
+
+def _manifest_outputs(folder: Path) -> set[str] | None:
+    """The files listed by a cohort manifest in ``folder``; ``None`` without one."""
+    try:
+        manifest = json.loads((folder / MARKER).read_text(encoding="utf-8"))
+        listed = manifest["outputs"]
+        if manifest.get("tool") != "cohort" or not isinstance(listed, list):
+            return None
+        return {str(p) for p in listed}
+    except (OSError, ValueError, KeyError, TypeError):
+        return None
+
+
+def foreign_entries(folder: Path) -> list[str]:
+    """What ``folder`` holds that an earlier ``cohort run`` did not write there: every file
+    not listed by its manifest, and every link (all of it when there is no manifest)."""
+    listed = _manifest_outputs(folder)
+    if listed is None:
+        return sorted(p.name for p in folder.iterdir())
+    foreign = []
+    for root, dirs, files in os.walk(folder):
+        for name in sorted(dirs + files):
+            path = Path(root) / name
+            relative = path.relative_to(folder).as_posix()
+            if path.is_symlink() or (name in files and relative not in listed):
+                foreign.append(relative)
+    return sorted(foreign)
+
+
+def earlier_output_files(folder: Path) -> list[str] | None:
+    """The files an earlier ``cohort run`` wrote into ``folder``, from its manifest, when
+    ``folder`` holds nothing else (:func:`foreign_entries`); otherwise ``None``."""
+    listed = _manifest_outputs(folder)
+    if listed is None or foreign_entries(folder):
+        return None
+    return sorted(
+        (Path(root) / name).relative_to(folder).as_posix()
+        for root, _, files in os.walk(folder)
+        for name in files
+    )
+
+
+def check_destination(
+    out: str | Path,
+    inputs: Iterable[str | Path | None] = (),
+    *,
+    force: bool = False,
+) -> Path:
+    """Check ``out`` against rules 1 and 2 of the module docstring; return it as an absolute
+    path, or raise :class:`OutputFolderError` (:class:`OutputExistsError` for a folder that
+    holds files) saying why.
+
+    Examples
+    --------
+    >>> import pathlib, tempfile
+    >>> base = pathlib.Path(tempfile.mkdtemp())
+    >>> _ = (base / "values.csv").write_text("subject\\n")
+    >>> try:
+    ...     check_destination(base, [base / "values.csv"])
+    ... except OutputFolderError as exc:
+    ...     print("refused:", "holds the input" in str(exc))
+    refused: True
+    """
+    given = str(out)
+    out = Path(os.path.abspath(out))
+    if os.path.islink(out):
+        raise OutputFolderError(
+            f"output folder {given!r} is a symbolic link; give the real folder instead"
+        )
+    real = _real(out)
+    cwd = _real(Path.cwd())
+    if real == cwd or cwd.is_relative_to(real):
+        raise OutputFolderError(
+            f"output folder {given!r} is the current folder or contains it; give a new "
+            "folder, e.g. --out cohort-report"
+        )
+    for path in inputs:
+        if path is None:
+            continue
+        source = _real(path)
+        if source == real:
+            raise OutputFolderError(f"output folder {given!r} is the input file {str(path)!r}")
+        if source.is_relative_to(real):
+            raise OutputFolderError(
+                f"output folder {given!r} holds the input {str(path)!r}; "
+                "write the report to a folder of its own"
+            )
+    if out.exists() and not out.is_dir():
+        raise OutputFolderError(f"output folder {given!r} is a file, not a folder")
+    ancestor = out.parent
+    while not ancestor.exists():
+        ancestor = ancestor.parent
+    if not ancestor.is_dir():
+        raise OutputFolderError(f"cannot create {given!r}: {str(ancestor)!r} is a file")
+    if out.is_dir() and any(out.iterdir()):
+        foreign = foreign_entries(out)
+        if foreign:
+            shown = ", ".join(repr(s) for s in foreign[:3])
+            more = f" and {len(foreign) - 3} more" if len(foreign) > 3 else ""
+            raise OutputExistsError(
+                f"output folder {given!r} holds files that cohort did not write ({shown}"
+                f"{more}); cohort replaces only a folder written by an earlier cohort run, "
+                "and nothing in it: give a new folder"
+            )
+        if not force:
+            raise OutputExistsError(
+                f"output folder {given!r} holds an earlier cohort output; give --force to "
+                "replace it, or a new folder"
+            )
+    return out
+
+
+def _lock(path: Path, out: Path) -> int:
+    """Open and lock ``path`` (the lock of ``out``) exclusively without waiting; the open
+    descriptor."""
+    while True:
+        fd = os.open(path, os.O_RDWR | os.O_CREAT, 0o600)
+        if fcntl is None:  # pragma: no cover - Windows: the lock file's existence is the lock
+            return fd
+        try:
+            fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+        except OSError as exc:
+            os.close(fd)
+            if exc.errno in (errno.EAGAIN, errno.EACCES, errno.EWOULDBLOCK):
+                raise OutputFolderError(
+                    f"another cohort run is writing to {str(out)!r} (it holds {str(path)!r}); "
+                    "wait for it or choose another folder"
+                ) from None
+            raise
+        # the previous holder may have removed the file between our open and our lock
+        try:
+            if os.path.samestat(os.fstat(fd), os.stat(path)):
+                os.ftruncate(fd, 0)
+                os.write(fd, f"{os.getpid()}\n".encode())
+                return fd
+        except FileNotFoundError:
+            pass
+        os.close(fd)
+
+
+def _unlock(path: Path, fd: int) -> None:
+    try:
+        path.unlink(missing_ok=True)  # while still holding it (see _lock)
+    finally:
+        os.close(fd)
+
+
+def _remove_listed(folder: Path, files: list[str]) -> bool:
+    """Remove the listed files (plain files only, never through a link), then the folders
+    left empty; whether ``folder`` is gone."""
+    for name in files:
+        path = folder / name
+        if path.is_file() and not path.is_symlink() and not _has_link(folder, path):
+            path.unlink()
+    for root, _, _ in sorted(os.walk(folder), key=lambda w: -len(w[0])):
+        try:
+            os.rmdir(root)
+        except OSError:
+            pass
+    return not folder.exists()
+
+
+def _has_link(folder: Path, path: Path) -> bool:
+    """Whether a folder between ``folder`` and ``path`` is a symbolic link."""
+    return any(p.is_symlink() for p in path.parents if p.is_relative_to(folder) and p != folder)
+
+
+def _created_parents(out: Path) -> list[Path]:
+    """Ancestors of ``out`` that do not exist yet, deepest first."""
+    missing = []
+    parent = out.parent
+    while not parent.exists():
+        missing.append(parent)
+        parent = parent.parent
+    return missing
+
+
+class Destination:
+    """An output folder being written: the lock, the staging folder, the final move.
+
+    Use :func:`writing_to`; write into :attr:`staging`, then call :meth:`publish`.
+    """
+
+    def __init__(self, out: Path, inputs: list[str | Path | None], force: bool) -> None:
+        self.out = out
+        self.inputs = inputs
+        self.force = force
+        self.staging: Path | None = None
+        self.kept: Path | None = None
+        self._created = _created_parents(out)
+        self._lock_path = out.parent / f".{out.name}.cohort-lock"
+        self._fd: int | None = None
+
+    def open(self) -> Path:
+        try:
+            self.out.parent.mkdir(parents=True, exist_ok=True)
+            self._fd = _lock(self._lock_path, self.out)
+            check_destination(self.out, self.inputs, force=self.force)  # again, now locked
+            self.staging = Path(
+                tempfile.mkdtemp(prefix=f".{self.out.name}.cohort-partial-", dir=self.out.parent)
+            )
+        except OutputFolderError:
+            self.close(success=False)
+            raise
+        except OSError as exc:
+            self.close(success=False)
+            raise OutputFolderError(
+                f"cannot write in {str(self.out.parent)!r}: {exc.strerror or exc}"
+            ) from None
+        except BaseException:
+            self.close(success=False)
+            raise
+        return self.staging
+
+    def publish(self) -> Path:
+        """Move the finished staging folder to ``out`` (rules 4 and 5)."""
+        if self.staging is None:
+            raise RuntimeError("publish() needs an open destination with a staging folder")
+        raise_if_interrupted()
+        out = self.out
+        check_destination(out, self.inputs, force=self.force)
+        aside = None
+        if out.is_dir() and any(out.iterdir()):
+            listed = _manifest_outputs(out) or set()
+            aside = Path(tempfile.mkdtemp(prefix=f".{out.name}.cohort-old-", dir=out.parent))
+            os.rename(out, aside / "previous")
+        try:
+            os.rename(self.staging, out)  # replaces nothing but an empty folder
+        except OSError as exc:
+            if aside is not None and not out.exists():
+                os.rename(aside / "previous", out)
+                os.rmdir(aside)
+            raise OutputExistsError(
+                f"output folder {str(out)!r} appeared or changed during the run "
+                f"({exc.strerror}); it was left as it is and this run's results were not kept"
+            ) from None
+        self.staging = None
+        if aside is not None:
+            if _remove_listed(aside / "previous", sorted(listed)):
+                os.rmdir(aside)
+            else:
+                stamp = datetime.now(UTC).strftime("%Y%m%dT%H%M%S")
+                self.kept = out.with_name(f"{out.name}.kept-{stamp}")
+                os.rename(aside / "previous", self.kept)
+                os.rmdir(aside)
+        return out
+
+    def close(self, *, success: bool) -> None:
+        if self.staging is not None:
+            shutil.rmtree(self.staging, ignore_errors=True)
+            self.staging = None
+        if self._fd is not None:
+            _unlock(self._lock_path, self._fd)
+            self._fd = None
+        if not success:
+            for folder in self._created:  # deepest first; only while still empty
+                try:
+                    folder.rmdir()
+                except OSError:
+                    break
+
+
+@contextmanager
+def writing_to(
+    out: str | Path, inputs: Iterable[str | Path | None] = (), *, force: bool = False
+) -> Iterator[Destination]:
+    """Check ``out``, lock it and give a :class:`Destination` with an empty staging folder.
+
+    On leaving, the staging folder (when not published), the lock and the parent folders
+    created for ``out`` (when nothing was published) are removed, whatever happened;
+    ``SIGTERM`` and ``SIGHUP`` raise :class:`RunInterrupted` meanwhile (main thread only).
+    """
+    inputs = list(inputs)
+    checked = check_destination(out, inputs, force=force)
+    destination = Destination(checked, inputs, force)
+    with _interruptible():
+        destination.open()
+        published = False
+        try:
+            yield destination
+            published = destination.staging is None
+        finally:
+            destination.close(success=published)
+
+
+def _interrupt(signum, frame):
+    _RECEIVED.append(signum)
+    raise RunInterrupted(signum)
+
+
+def _in_forked_child() -> None:
+    """A process forked during a run (a worker) must not run the parent's cleanup: SIGTERM
+    and SIGHUP end it at once, and SIGINT (sent by a terminal to the whole process group)
+    is left to the parent, which ends its workers."""
+    _RECEIVED.clear()
+    for name, action in (("SIGINT", signal.SIG_IGN), ("SIGTERM", signal.SIG_DFL)):
+        if signal.getsignal(getattr(signal, name)) is _interrupt:
+            signal.signal(getattr(signal, name), action)
+    if hasattr(signal, "SIGHUP") and signal.getsignal(signal.SIGHUP) is _interrupt:
+        signal.signal(signal.SIGHUP, signal.SIG_DFL)
+
+
+if hasattr(os, "register_at_fork"):
+    os.register_at_fork(after_in_child=_in_forked_child)
+
+
+@contextmanager
+def _interruptible() -> Iterator[None]:
+    """Turn ``SIGINT``, ``SIGTERM`` and ``SIGHUP`` into :class:`RunInterrupted` (and a record
+    that :func:`raise_if_interrupted` reads) so that cleanup runs; a signal that is ignored
+    stays ignored. Where Python cannot raise the exception (it arrived in a fork hook or a
+    finaliser), it is not printed: the record raises it again at the next stage."""
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+    names = ("SIGINT", "SIGTERM", "SIGHUP")
+    signums = [getattr(signal, n) for n in names if hasattr(signal, n)]
+    previous = {s: signal.getsignal(s) for s in signums}
+    hook = sys.unraisablehook
+
+    def quiet(unraisable) -> None:
+        if not isinstance(unraisable.exc_value, RunInterrupted):
+            hook(unraisable)
+
+    _RECEIVED.clear()
+    sys.unraisablehook = quiet
+    for s in signums:
+        if previous[s] is not signal.SIG_IGN:
+            signal.signal(s, _interrupt)
+    try:
+        yield
+    finally:
+        for s, handler in previous.items():
+            if handler is not None:
+                signal.signal(s, handler)
+        sys.unraisablehook = hook
+        _RECEIVED.clear()
