@@ -80,6 +80,25 @@ def _threshold_sentences(thresholds: pd.DataFrame) -> list[str]:
     return lines
 
 
+def _plausibility_sentence(settings) -> str:
+    """The plausibility limits applied when the values were read, and what they did."""
+    c = settings.checks
+    ff = (
+        f"{-c.ff_below_zero_tolerance:g} to {100 + c.ff_above_100_tolerance:g} %"
+        if settings.ff_unit == "percent"
+        else f"{-c.ff_below_zero_tolerance / 100:g} to {1 + c.ff_above_100_tolerance / 100:g}"
+    )
+    action = (
+        "values outside them were excluded and listed with the limit they broke"
+        if c.implausible == "exclude"
+        else "a study with values outside them would have been refused"
+    )
+    return (
+        f"Plausibility limits: fat fraction {ff}, R2* 0 to {c.r2star_max:g} 1/s, "
+        f"|field| at most {c.field_max_abs_hz:g} Hz; {action}."
+    )
+
+
 def methods_markdown(analysis: Analysis) -> str:
     """A ready-to-edit methods section (Markdown) describing exactly the analyses that ran."""
     study, o = analysis.study, analysis.options
@@ -120,7 +139,7 @@ def methods_markdown(analysis: Analysis) -> str:
         f"{analysis.tables['record_accounting']['used'].item()} were used, "
         f"{analysis.tables['record_accounting']['missing'].item()} were missing and "
         f"{analysis.tables['record_accounting']['excluded'].item()} were excluded "
-        "(reasons listed in the exclusions table).",
+        "(reasons listed in the exclusions table). " + _plausibility_sentence(s),
         "",
         "## Agreement",
         "Differences were computed as test minus reference. Because segments are nested within "

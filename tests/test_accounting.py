@@ -217,6 +217,17 @@ def test_implausible_values_can_be_excluded_with_their_rule(make_study):
     assert warned[0].detail.startswith("2 implausible value(s) excluded")
 
 
+def test_methods_text_states_the_plausibility_policy_that_ran(make_study):
+    # the methods text states exactly what ran (project rule): limits and what they did
+    from cohort.methods_text import _plausibility_sentence
+
+    refused = make_study(values=small_values())
+    excluded = refused.with_options(checks=Checks(implausible="exclude", r2star_max=800.0))
+    assert "would have been refused" in _plausibility_sentence(refused)
+    text = _plausibility_sentence(excluded)
+    assert "R2* 0 to 800 1/s" in text and "were excluded and listed" in text
+
+
 def test_excluded_implausible_t2star_does_not_clash_with_r2star(make_study):
     rows = small_values()
     rows.append(["0017", "ref", 1, "t2star", 0.0])  # not positive: excluded, never converted
