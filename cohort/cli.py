@@ -10,13 +10,12 @@ import argparse
 import os
 import signal
 import sys
-import tempfile
 import warnings
 from collections.abc import Sequence
 from pathlib import Path
 
 from .cautions import CAUTION
-from .destination import OutputFolderError, check_destination
+from .destination import OutputFolderError, ReservedFile, check_destination
 from .problems import StudyError, format_problems
 from .settings import StudySettings, build_settings, read_study_file
 from .study import load_study
@@ -83,26 +82,23 @@ def _input_paths(settings: StudySettings, *extra: str | None) -> list[Path]:
     return [Path(p) for p in paths if p]
 
 
-EARLIER_CODE_LIST_COLUMNS = ("subject", "code")
-"""The columns of code lists written by cohort 0.1 before identifying columns were coded."""
-
-
 def _is_code_list(path: Path) -> bool:
-    """Whether ``path`` is a code list written by ``cohort run --pseudonymize`` (by its
-    header): the only kind of existing file that a new code list may replace."""
+    """Whether ``path`` is a code list written by ``cohort run --pseudonymize`` (its header
+    is exactly :data:`cohort.pseudonyms.CODE_LIST_COLUMNS`): the only kind of existing file
+    that a new code list may replace."""
     from .pseudonyms import CODE_LIST_COLUMNS
 
     try:
         with path.open(encoding="utf-8") as handle:
-            header = tuple(handle.readline().strip().split(","))
+            header = tuple(handle.readline().rstrip("\r\n").split(","))
     except (OSError, UnicodeDecodeError):
         return False
-    return header in (tuple(CODE_LIST_COLUMNS), EARLIER_CODE_LIST_COLUMNS)
+    return header == tuple(CODE_LIST_COLUMNS)
 
 
-def _code_list_path(args: argparse.Namespace, inputs: list[Path]) -> Path:
-    """Where the code list goes, checked: outside ``--out``, not an input, and replacing
-    nothing but an earlier code list."""
+def _reserve_code_list(args: argparse.Namespace, inputs: list[Path]) -> ReservedFile:
+    """Where the code list goes, checked and reserved before the analysis: outside
+    ``--out``, not an input, replacing nothing but an earlier code list."""
     out = Path(os.path.abspath(args.out))
     path = Path(os.path.abspath(args.code_list or out.with_name(f"{out.name}-pseudonym-codes.csv")))
     real = Path(os.path.realpath(path))
@@ -110,37 +106,7 @@ def _code_list_path(args: argparse.Namespace, inputs: list[Path]) -> Path:
         raise OutputFolderError("--code-list must be outside the output folder")
     if any(Path(os.path.realpath(p)) == real for p in inputs):
         raise OutputFolderError(f"--code-list {str(path)!r} is an input file; give a new file")
-    if path.is_symlink() or (path.exists() and not path.is_file()):
-        raise OutputFolderError(f"--code-list {str(path)!r} exists and is not a plain file")
-    if path.exists() and not _is_code_list(path):
-        raise OutputFolderError(
-            f"--code-list {str(path)!r} exists and is not an earlier code list (by its "
-            "header); it is left as it is: give a new file"
-        )
-    return path
-
-
-def _write_code_list(codes, path: Path) -> None:
-    """Write the code list without ever replacing another file: a new file appears whole
-    (a hard link of a finished temporary file, which fails if the name was taken meanwhile);
-    an existing one is replaced only while it is still an earlier code list."""
-    path.parent.mkdir(parents=True, exist_ok=True)
-    handle, temporary = tempfile.mkstemp(prefix=f".{path.name}.", dir=path.parent)
-    os.close(handle)
-    try:
-        codes.to_csv(temporary, index=False)
-        if path.exists():
-            if not _is_code_list(path):
-                raise OutputFolderError(f"--code-list {str(path)!r} changed during the run")
-            os.replace(temporary, path)
-        else:
-            os.link(temporary, path)
-    except FileExistsError:
-        raise OutputFolderError(
-            f"--code-list {str(path)!r} appeared during the run; it is left as it is"
-        ) from None
-    finally:
-        Path(temporary).unlink(missing_ok=True)
+    return ReservedFile(path, _is_code_list, "--code-list")
 
 
 def cmd_run(args: argparse.Namespace) -> int:
@@ -150,36 +116,40 @@ def cmd_run(args: argparse.Namespace) -> int:
     settings = settings_from_args(args)
     inputs = _input_paths(settings, args.key_file)
     check_destination(args.out, inputs, force=args.force)  # before any work
-    codes_path = _code_list_path(args, inputs) if args.pseudonymize else None
-    study = load_study(settings)
-    if args.pseudonymize:
-        from .pseudonyms import load_key, pseudonymize_study
+    code_list = _reserve_code_list(args, inputs) if args.pseudonymize else None
+    try:
+        study = load_study(settings)
+        if args.pseudonymize:
+            from .pseudonyms import load_key, pseudonymize_study
 
-        study, codes = pseudonymize_study(study, load_key(args.key_file))
-    options = options_from_study(
-        study,
-        seed=args.seed,
-        n_boot=args.bootstrap,
-        figures=False if args.no_figures else None,
-        workers=args.workers,
-    )
+            study, codes = pseudonymize_study(study, load_key(args.key_file))
+        options = options_from_study(
+            study,
+            seed=args.seed,
+            n_boot=args.bootstrap,
+            figures=False if args.no_figures else None,
+            workers=args.workers,
+        )
 
-    def progress(message: str) -> None:
-        if not args.quiet:
-            print(f"[cohort] {message} ...", file=sys.stderr, flush=True)
+        def progress(message: str) -> None:
+            if not args.quiet:
+                print(f"[cohort] {message} ...", file=sys.stderr, flush=True)
 
-    summary = run(
-        study,
-        args.out,
-        options,
-        force=args.force,
-        progress=progress,
-        pseudonymized=args.pseudonymize,
-        protect=inputs,
-    )
-    if codes_path is not None:
-        _write_code_list(codes, codes_path)
-        print(f"  pseudonym code list (keep it apart from the report): {codes_path}")
+        summary = run(
+            study,
+            args.out,
+            options,
+            force=args.force,
+            progress=progress,
+            pseudonymized=args.pseudonymize,
+            protect=inputs,
+        )
+        if code_list is not None:
+            path = code_list.commit(lambda temporary: codes.to_csv(temporary, index=False))
+            print(f"  pseudonym code list (keep it apart from the report): {path}")
+    finally:
+        if code_list is not None:
+            code_list.discard()
     print(summary.text())
     print(f"\n{CAUTION}")
     return 0
@@ -199,6 +169,23 @@ def cmd_demo(args: argparse.Namespace) -> int:
     print(f"wrote an invented demo cohort to {folder} (see {study_file.name}); no real data")
     print(f"next: cohort run {study_file} --out cohort-report")
     return 0
+
+
+DEMO_SUBJECTS = (6, 100_000)
+"""Sizes of the demo cohort: at least two subjects per group, at most what the scale
+benchmark uses."""
+
+
+def _demo_size(text: str) -> int:
+    try:
+        n = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"not a whole number: {text!r}") from None
+    if not DEMO_SUBJECTS[0] <= n <= DEMO_SUBJECTS[1]:
+        raise argparse.ArgumentTypeError(
+            f"{n} is outside {DEMO_SUBJECTS[0]} to {DEMO_SUBJECTS[1]:,} subjects"
+        )
+    return n
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -254,7 +241,12 @@ def build_parser() -> argparse.ArgumentParser:
 
     demo = sub.add_parser("demo", help="write the invented demo cohort to a folder")
     demo.add_argument("folder")
-    demo.add_argument("--subjects", type=int, default=48)
+    demo.add_argument(
+        "--subjects",
+        type=_demo_size,
+        default=48,
+        help=f"subjects of the invented cohort ({DEMO_SUBJECTS[0]} to {DEMO_SUBJECTS[1]:,})",
+    )
     demo.add_argument("--seed", type=int, default=20261202)
     demo.add_argument(
         "--force", action="store_true", help="write again over an earlier demo (nothing else)"

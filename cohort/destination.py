@@ -31,10 +31,10 @@ import signal
 import sys
 import tempfile
 import threading
-from collections.abc import Iterable, Iterator
+from collections.abc import Callable, Iterable, Iterator
 from contextlib import contextmanager
 from datetime import UTC, datetime
-from pathlib import Path
+from pathlib import Path, PurePosixPath
 
 MARKER = "manifest.json"
 """The file by which an earlier run's output folder is recognised (with ``"tool": "cohort"``
@@ -79,29 +79,46 @@ def _real(path: str | Path) -> Path:
 
 
 def _manifest_outputs(folder: Path) -> set[str] | None:
-    """The files listed by a cohort manifest in ``folder``; ``None`` without one."""
+    """The files listed by a cohort manifest in ``folder``; ``None`` without one, or when an
+    entry is not a plain relative path inside the folder (absolute, ``..``, empty): such a
+    manifest was not written by cohort, and its list must never steer a deletion."""
     try:
         manifest = json.loads((folder / MARKER).read_text(encoding="utf-8"))
         listed = manifest["outputs"]
         if manifest.get("tool") != "cohort" or not isinstance(listed, list):
             return None
-        return {str(p) for p in listed}
     except (OSError, ValueError, KeyError, TypeError):
         return None
+    entries = set()
+    for entry in listed:
+        if not isinstance(entry, str) or not entry or "\\" in entry:
+            return None
+        parts = PurePosixPath(entry).parts
+        if PurePosixPath(entry).is_absolute() or any(p in ("", ".", "..") for p in parts):
+            return None
+        entries.add(PurePosixPath(*parts).as_posix())
+    return entries
 
 
 def foreign_entries(folder: Path) -> list[str]:
     """What ``folder`` holds that an earlier ``cohort run`` did not write there: every file
-    not listed by its manifest, and every link (all of it when there is no manifest)."""
+    not listed by its manifest, every folder that holds no listed file, and every link (all
+    of it when there is no usable manifest)."""
     listed = _manifest_outputs(folder)
     if listed is None:
         return sorted(p.name for p in folder.iterdir())
+    implied = {p.as_posix() for entry in listed for p in PurePosixPath(entry).parents}
     foreign = []
     for root, dirs, files in os.walk(folder):
-        for name in sorted(dirs + files):
-            path = Path(root) / name
-            relative = path.relative_to(folder).as_posix()
-            if path.is_symlink() or (name in files and relative not in listed):
+        base = Path(root).relative_to(folder).as_posix()
+        prefix = "" if base == "." else base + "/"
+        for name in dirs:
+            relative = prefix + name
+            if (Path(root) / name).is_symlink() or relative not in implied:
+                foreign.append(relative)
+        for name in files:
+            relative = prefix + name
+            if relative not in listed or (Path(root) / name).is_symlink():
                 foreign.append(relative)
     return sorted(foreign)
 
@@ -192,8 +209,19 @@ def check_destination(
 def _lock(path: Path, out: Path) -> int:
     """Open and lock ``path`` (the lock of ``out``) exclusively without waiting; the open
     descriptor."""
+    nofollow = getattr(os, "O_NOFOLLOW", 0)
     while True:
-        fd = os.open(path, os.O_RDWR | os.O_CREAT, 0o600)
+        if path.is_symlink() or (path.exists() and not _looks_like_lock(path)):
+            raise OutputFolderError(
+                f"{str(path)!r} exists and is not a cohort lock file; cohort locks the output "
+                "folder with that name and leaves it alone: move it or choose another folder"
+            )
+        try:
+            fd = os.open(path, os.O_RDWR | os.O_CREAT | nofollow, 0o600)
+        except OSError as exc:
+            if exc.errno == errno.ELOOP:  # a link appeared meanwhile
+                raise OutputFolderError(f"{str(path)!r} is a link; it is left alone") from None
+            raise
         if fcntl is None:  # pragma: no cover - Windows: the lock file's existence is the lock
             return fd
         try:
@@ -217,6 +245,16 @@ def _lock(path: Path, out: Path) -> int:
         os.close(fd)
 
 
+def _looks_like_lock(path: Path) -> bool:
+    """An existing lock file of an earlier run: empty or one process number, a plain file."""
+    try:
+        if not path.is_file() or path.stat().st_size > 32:
+            return False
+        return path.read_text(encoding="ascii").strip().isdigit() or path.stat().st_size == 0
+    except (OSError, UnicodeDecodeError):
+        return False
+
+
 def _unlock(path: Path, fd: int) -> None:
     try:
         path.unlink(missing_ok=True)  # while still holding it (see _lock)
@@ -227,9 +265,15 @@ def _unlock(path: Path, fd: int) -> None:
 def _remove_listed(folder: Path, files: list[str]) -> bool:
     """Remove the listed files (plain files only, never through a link), then the folders
     left empty; whether ``folder`` is gone."""
+    inside = _real(folder)
     for name in files:
         path = folder / name
-        if path.is_file() and not path.is_symlink() and not _has_link(folder, path):
+        if (
+            path.is_file()
+            and not path.is_symlink()
+            and not _has_link(folder, path)
+            and _real(path).is_relative_to(inside)
+        ):
             path.unlink()
     for root, _, _ in sorted(os.walk(folder), key=lambda w: -len(w[0])):
         try:
@@ -296,6 +340,10 @@ class Destination:
         if self.staging is None:
             raise RuntimeError("publish() needs an open destination with a staging folder")
         raise_if_interrupted()
+        with _signals_held():
+            return self._publish()
+
+    def _publish(self) -> Path:
         out = self.out
         check_destination(out, self.inputs, force=self.force)
         aside = None
@@ -340,6 +388,23 @@ class Destination:
 
 
 @contextmanager
+def _signals_held() -> Iterator[None]:
+    """Hold SIGINT, SIGTERM and SIGHUP back (POSIX) while the folders are swapped, so that the
+    swap is never left half done; a signal that arrived meanwhile is delivered afterwards."""
+    names = ("SIGINT", "SIGTERM", "SIGHUP")
+    held = {getattr(signal, n) for n in names if hasattr(signal, n)}
+    mask = getattr(signal, "pthread_sigmask", None)
+    if mask is None or threading.current_thread() is not threading.main_thread():
+        yield  # pragma: no cover - not POSIX
+        return
+    previous = mask(signal.SIG_BLOCK, held)
+    try:
+        yield
+    finally:
+        mask(signal.SIG_SETMASK, previous)
+
+
+@contextmanager
 def writing_to(
     out: str | Path, inputs: Iterable[str | Path | None] = (), *, force: bool = False
 ) -> Iterator[Destination]:
@@ -354,12 +419,10 @@ def writing_to(
     destination = Destination(checked, inputs, force)
     with _interruptible():
         destination.open()
-        published = False
         try:
             yield destination
-            published = destination.staging is None
         finally:
-            destination.close(success=published)
+            destination.close(success=destination.staging is None)
 
 
 def _interrupt(signum, frame):
@@ -414,3 +477,82 @@ def _interruptible() -> Iterator[None]:
                 signal.signal(s, handler)
         sys.unraisablehook = hook
         _RECEIVED.clear()
+
+
+class ReservedFile:
+    """A single output file outside the output folder (the pseudonym code list), reserved
+    before the analysis and put in place at the end without ever replacing another file.
+
+    The reservation creates a hidden temporary file beside ``path`` (so a place that cannot
+    be written is found before any work); :meth:`commit` writes it and links it to ``path``
+    (a link fails if the name was taken meanwhile) or replaces ``path`` while
+    ``may_replace(path)`` still holds; :meth:`discard` removes what was reserved.
+    """
+
+    def __init__(self, path: Path, may_replace: Callable[[Path], bool], what: str) -> None:
+        self.path = Path(os.path.abspath(path))
+        self.may_replace = may_replace
+        self.what = what
+        self._created = _created_parents(self.path)
+        given = str(path)
+        if self.path.is_symlink() or (self.path.exists() and not self.path.is_file()):
+            raise OutputFolderError(f"{what} {given!r} exists and is not a plain file")
+        if self.path.exists() and not may_replace(self.path):
+            raise OutputFolderError(
+                f"{what} {given!r} exists and is not one that cohort wrote; it is left as it "
+                "is: give a new file"
+            )
+        ancestor = self.path.parent
+        while not ancestor.exists():
+            ancestor = ancestor.parent
+        if not ancestor.is_dir():
+            raise OutputFolderError(f"cannot create {what} {given!r}: {str(ancestor)!r} is a file")
+        try:
+            self.path.parent.mkdir(parents=True, exist_ok=True)
+            handle, temporary = tempfile.mkstemp(prefix=f".{self.path.name}.", dir=self.path.parent)
+        except OSError as exc:
+            self.discard()
+            raise OutputFolderError(
+                f"cannot write {what} {given!r}: {exc.strerror or exc}"
+            ) from None
+        os.close(handle)
+        self.temporary: Path | None = Path(temporary)
+
+    def commit(self, write: Callable[[Path], object]) -> Path:
+        """Write the file with ``write(temporary path)`` and put it in place."""
+        if self.temporary is None:
+            raise RuntimeError("this file was committed or discarded already")
+        try:
+            write(self.temporary)
+            if self.path.exists() or self.path.is_symlink():
+                if self.path.is_symlink() or not self.may_replace(self.path):
+                    raise OutputFolderError(
+                        f"{self.what} {str(self.path)!r} changed during the run; it is left "
+                        "as it is"
+                    )
+                os.replace(self.temporary, self.path)
+            else:
+                os.link(self.temporary, self.path)
+        except FileExistsError:
+            raise OutputFolderError(
+                f"{self.what} {str(self.path)!r} appeared during the run; it is left as it is"
+            ) from None
+        except OSError as exc:
+            raise OutputFolderError(
+                f"cannot write {self.what} {str(self.path)!r}: {exc.strerror or exc}"
+            ) from None
+        finally:
+            self.discard(keep_parents=True)
+        return self.path
+
+    def discard(self, *, keep_parents: bool = False) -> None:
+        temporary = getattr(self, "temporary", None)
+        if temporary is not None:
+            temporary.unlink(missing_ok=True)
+            self.temporary = None
+        if not keep_parents:
+            for folder in self._created:
+                try:
+                    folder.rmdir()
+                except OSError:
+                    break

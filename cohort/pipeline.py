@@ -15,7 +15,7 @@ from __future__ import annotations
 import time
 import warnings
 from collections.abc import Callable, Mapping
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Any
 
 import pandas as pd
@@ -30,7 +30,7 @@ from .results import CohortWarning
 from .segments import SEGMENTS
 from .study import Study
 from .swaps import swap_screen_with
-from .thresholds import parse_findings, parse_swap_options, thresholds_table
+from .thresholds import SwapOptions, parse_findings, parse_swap_options, thresholds_table
 
 Progress = Callable[[str], None]
 
@@ -57,6 +57,14 @@ def _segment_catalogue() -> pd.DataFrame:
             "territory": [s.territory for s in SEGMENTS.values()],
         }
     )
+
+
+def _present(options: SwapOptions, paired: pd.DataFrame) -> SwapOptions:
+    """The swap options without named methods that have no pair left (every value of theirs
+    was excluded: the exclusions table says why)."""
+    methods = set(paired["method"].astype(str))
+    kept = tuple(m for m in options.magnitude_only_methods if m in methods)
+    return replace(options, magnitude_only_methods=kept)
 
 
 def analyse(
@@ -123,7 +131,9 @@ def analyse(
         "missed", "missed and extra findings", lambda: missed_findings(findings, study.reference)
     )
     swaps = step(
-        "swaps", "fat-water swap screen", lambda: swap_screen_with(study.paired, swap_options)
+        "swaps",
+        "fat-water swap screen",
+        lambda: swap_screen_with(study.paired, _present(swap_options, study.paired)),
     )
     alerts_found = step(
         "alerts",

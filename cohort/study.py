@@ -212,6 +212,7 @@ def load_study(source: str | Path | StudySettings) -> Study:
     subjects = check_subjects(subjects_raw, settings, log)
     if values is not None and subjects is not None:
         check_across(values, subjects, settings, log, values_raw.name, subjects_raw.name)
+        _check_named_methods(values, settings, log)
     log.raise_if_errors()
     assert values is not None and subjects is not None  # guaranteed by raise_if_errors
     subjects = subjects.drop(columns=[ROW]).reset_index(drop=True)
@@ -226,6 +227,27 @@ def load_study(source: str | Path | StudySettings) -> Study:
     for frame in (records, canonical, paired):
         _compact(frame)
     return Study(settings, subjects, canonical, paired, records, log.warnings)
+
+
+def _check_named_methods(values: pd.DataFrame, settings: StudySettings, log: ProblemLog) -> None:
+    """Methods the study file names (``[findings] magnitude_only_methods``) must be test
+    methods of the values table: found when the study is checked, not after the analysis."""
+    from .thresholds import parse_swap_options
+
+    named = parse_swap_options(settings.extra.get("findings")).magnitude_only_methods
+    present = set(values["method"].astype(str))
+    tests = sorted(present - {settings.reference})
+    for method in named:
+        if method not in tests:
+            log.add(
+                "study-option",
+                "[findings] magnitude_only_methods names a method that is not a test method "
+                "of the values table",
+                file=settings.input_name(settings.study_file) or "study settings",
+                column="magnitude_only_methods",
+                value=method,
+                expected=f"one of {tests}",
+            )
 
 
 def _named(problems: list[Problem], name: str) -> list[Problem]:

@@ -401,3 +401,13 @@ def test_every_used_value_is_in_a_pair_and_nothing_else_is(make_study):
         "implausible: field offset beyond the plausible 2000 Hz ([checks] field_max_abs_hz)"
         in reasons
     )
+
+
+def test_a_magnitude_only_method_that_is_not_a_test_method_is_refused_at_check(make_study):
+    # found by `cohort check`, not after the analysis (it once crashed the run)
+    settings = make_study(values=small_values())
+    settings = settings.with_options(extra={"findings": {"magnitude_only_methods": ["nope"]}})
+    problems = problems_of(settings)
+    found = coded(problems, "study-option")
+    assert found[0].value == "nope" and found[0].column == "magnitude_only_methods"
+    assert "'fast'" in found[0].expected

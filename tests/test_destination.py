@@ -9,6 +9,7 @@ deleted or overwritten: the rule of this project, common practice for research d
 from __future__ import annotations
 
 import hashlib
+import json
 import os
 import signal
 import subprocess
@@ -221,6 +222,53 @@ def test_check_destination_is_a_pure_check(study, tmp_path):
     assert snapshot(tmp_path) == before and not (tmp_path / "new").exists()
 
 
+def test_a_manifest_cannot_steer_a_deletion_outside_its_folder(study, tmp_path, capsys):
+    # a hand-written manifest listing files elsewhere (absolute, "..") is not cohort's:
+    # refused, and the files it names are untouched
+    precious = tmp_path / "precious"
+    precious.mkdir()
+    (precious / "thesis.txt").write_text("years of work")
+    fake = tmp_path / "fake"
+    fake.mkdir()
+    for listed in (
+        [str(precious / "thesis.txt")],
+        ["../precious/thesis.txt"],
+        ["./manifest.json", "a\\..\\b"],
+        [str(study.parent / "values.csv")],
+    ):
+        (fake / "manifest.json").write_text(
+            json.dumps({"tool": "cohort", "outputs": ["manifest.json", *listed]})
+        )
+        before = snapshot(tmp_path)
+        refused(capsys, run_cli(study, fake, "--force"), "did not write")
+        assert snapshot(tmp_path) == before
+
+
+def test_an_empty_folder_added_to_an_earlier_output_is_not_removed(study, tmp_path, capsys):
+    out = tmp_path / "report"
+    assert run_cli(study, out) == 0
+    (out / "my-notes").mkdir()
+    (out / "tables" / "sub").mkdir()
+    refused(capsys, run_cli(study, out, "--force"), "did not write", "my-notes")
+    assert (out / "my-notes").is_dir() and (out / "tables" / "sub").is_dir()
+
+
+def test_the_lock_never_follows_a_link_or_takes_a_user_file(study, tmp_path, capsys):
+    victim = tmp_path / "victim.csv"
+    victim.write_text("a,b\n1,2\n")
+    (tmp_path / ".linked.cohort-lock").symlink_to(victim)
+    (tmp_path / ".mine.cohort-lock").write_text("my own notes, not a lock\n")
+    before = snapshot(tmp_path)
+    refused(capsys, run_cli(study, tmp_path / "linked"), "not a cohort lock file")
+    refused(capsys, run_cli(study, tmp_path / "mine"), "not a cohort lock file")
+    assert snapshot(tmp_path) == before
+    assert (tmp_path / ".linked.cohort-lock").is_symlink()
+    # the lock file of a run that was killed (a process number) is taken over and removed
+    (tmp_path / ".stale.cohort-lock").write_text("999999\n")
+    assert run_cli(study, tmp_path / "stale") == 0
+    assert not (tmp_path / ".stale.cohort-lock").exists()
+
+
 # --- the code list -------------------------------------------------------------------------
 
 
@@ -237,7 +285,7 @@ def test_code_list_never_overwrites_another_file(study, tmp_path, key_file, caps
     mine.write_text("patient,notes\nA,keep\n")
     before = snapshot(tmp_path)
     for target, words in [
-        (mine, "not an earlier code list"),
+        (mine, "not one that cohort wrote"),
         (study.parent / "subjects.csv", "is an input file"),
         (key_file, "is an input file"),
         (tmp_path / "out" / "codes.csv", "outside the output folder"),
@@ -254,6 +302,24 @@ def test_code_list_never_overwrites_another_file(study, tmp_path, key_file, caps
     assert mine.read_text() == "patient,notes\nA,keep\n"
 
 
+def test_a_code_list_that_cannot_be_written_is_refused_before_the_analysis(
+    study, tmp_path, key_file, capsys
+):
+    pseudo = ["--pseudonymize", "--key-file", str(key_file)]
+    user_list = tmp_path / "linkage.csv"
+    user_list.write_text("subject,code\nHV001,kept-by-the-hospital\n")  # not cohort's header
+    before = snapshot(tmp_path)
+    for target, words in [
+        (study / "codes.csv", "is a file"),  # below the study file
+        ("/proc/cohort-codes.csv", "cannot write"),
+        (user_list, "not one that cohort wrote"),
+    ]:
+        code = run_cli(study, tmp_path / "out", *pseudo, "--code-list", str(target))
+        refused(capsys, code, words)
+        assert not (tmp_path / "out").exists()  # refused before anything was written
+        assert snapshot(tmp_path) == before
+
+
 def test_key_file_inside_out_is_protected(study, tmp_path, key_file, capsys):
     code = run_cli(study, tmp_path, "--force", "--pseudonymize", "--key-file", str(key_file))
     refused(capsys, code)
@@ -265,9 +331,9 @@ def test_key_file_inside_out_is_protected(study, tmp_path, key_file, capsys):
 
 def test_demo_writes_only_into_a_new_folder_or_an_earlier_demo(tmp_path, capsys):
     folder = tmp_path / "d"
-    assert main(["demo", str(folder), "--subjects", "4"]) == 0
-    refused(capsys, main(["demo", str(folder), "--subjects", "4"]), "earlier demo")
-    assert main(["demo", str(folder), "--subjects", "5", "--force"]) == 0
+    assert main(["demo", str(folder), "--subjects", "6"]) == 0
+    refused(capsys, main(["demo", str(folder), "--subjects", "6"]), "earlier demo")
+    assert main(["demo", str(folder), "--subjects", "7", "--force"]) == 0
     (folder / "values.csv").write_text("my own values\n")  # now not a demo's file alone?
     (folder / "notes.txt").write_text("mine")
     before = snapshot(folder)
@@ -275,7 +341,33 @@ def test_demo_writes_only_into_a_new_folder_or_an_earlier_demo(tmp_path, capsys)
     assert snapshot(folder) == before
 
 
+def test_demo_size_is_checked_before_anything_is_written(tmp_path, capsys):
+    for size in ("0", "-5", "5", "100000000", "many"):
+        with pytest.raises(SystemExit) as exit_:
+            main(["demo", str(tmp_path / "d"), "--subjects", size])
+        assert exit_.value.code == 2
+        assert "--subjects" in capsys.readouterr().err
+    assert list(tmp_path.iterdir()) == []
+
+
 # --- interruption ------------------------------------------------------------------------------
+
+
+def test_ctrl_c_while_the_libraries_load_ends_quietly(monkeypatch, capsys):
+    import importlib.abc
+
+    import cohort.__main__ as entry
+
+    class Interrupting(importlib.abc.MetaPathFinder):
+        def find_spec(self, name, path=None, target=None):
+            if name == "cohort.cli":
+                raise KeyboardInterrupt
+            return None
+
+    monkeypatch.delitem(sys.modules, "cohort.cli")
+    monkeypatch.setattr(sys, "meta_path", [Interrupting(), *sys.meta_path])
+    assert entry.main() == 130
+    assert "interrupted while starting" in capsys.readouterr().err
 
 
 def test_workers_end_when_one_of_them_fails():
