@@ -19,6 +19,7 @@ from __future__ import annotations
 
 import csv
 import io
+import os
 import re
 from collections.abc import Iterator
 from dataclasses import dataclass, field
@@ -148,8 +149,13 @@ def read_table(path: str | Path) -> RawTable:
     except StudyError:
         raise
     except Exception as exc:  # any reader failure becomes a located problem
+        # the readers' messages repeat the path given: name the file only (it may sit in
+        # a folder whose name identifies a person)
+        message = str(exc)
+        for spelling in {str(path), str(Path(path).resolve()), os.fspath(path)}:
+            message = message.replace(spelling, name)
         raise StudyError(
-            [Problem("file-unreadable", f"cannot read file: {exc}", file=str(path))]
+            [Problem("file-unreadable", f"cannot read file: {message}", file=name)]
         ) from None
     numbers = frame.attrs.pop("rows", range(2, len(frame) + 2))
     frame.attrs.clear()  # pandas deep-copies attrs on every operation: keep none

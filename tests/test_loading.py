@@ -252,3 +252,17 @@ def test_without_pyarrow_plain_files_are_read_by_the_csv_module(tmp_path, monkey
         pd.testing.assert_frame_equal(after, before)  # same cells and spreadsheet rows
     assert loading.read_table(path).frame["_row"].tolist() == [2, 3, 5]
     assert loading.read_table(plain).frame["value"].tolist() == [" 1.5", ""]
+
+
+def test_an_unreadable_file_is_named_without_its_folder(tmp_path):
+    # a reader's own message repeats the path; the problem names the file alone, since a
+    # folder name can identify a person (README, Data protection)
+    folder = tmp_path / "patient-Doe-Jane"
+    folder.mkdir()
+    path = folder / "values.parquet"
+    path.write_bytes(b"not a parquet file")
+    with pytest.raises(StudyError) as caught:
+        loading.read_table(path)
+    [problem] = caught.value.problems
+    assert problem.code == "file-unreadable" and problem.file == "values.parquet"
+    assert "patient-Doe-Jane" not in str(problem)
