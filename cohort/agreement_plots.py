@@ -25,11 +25,12 @@ from matplotlib.patches import Patch
 from matplotlib.ticker import FixedLocator, FuncFormatter, NullFormatter
 
 from cohort.style import (
+    AXIS_NAME_WIDTH,
     BAND_COLOUR,
     CATEGORICAL,
     LINE_COLOUR,
     figure_size,
-    fit_label,
+    fit_axis_name,
     group_styles,
     style_context,
 )
@@ -324,7 +325,7 @@ def bland_altman_plot(
             spread = float(np.ptp(y)) if y.size > 1 else float(abs(y[0]))
             decimals = 3 if ratio else _decimals(spread)
             line_handles = _draw_limits(ax, limits, mean, ratio, limit_type, decimals)
-        ref_text, test_text = _name(reference_name), _name(test_name)
+        ref_text, test_text = fit_axis_name(reference_name), fit_axis_name(test_name)
         ax.set_xlabel(_two_lines(f"mean of {ref_text}", f"and {test_text}, {axis_label}"))
         if ratio:
             ax.set_ylabel(_two_lines(f"ratio {test_text}", f"/ {ref_text}"))
@@ -333,15 +334,6 @@ def bland_altman_plot(
             ax.set_ylabel(_two_lines(f"{test_text} −", f"{ref_text}, {axis_label}"))
         _legend_above(ax, line_handles, group_handles)
     return ax
-
-
-AXIS_NAME_WIDTH = 24
-"""Characters of a method name in an axis label (one line, then an ellipsis)."""
-
-
-def _name(name: object) -> str:
-    """A method name as drawn in an axis label: one line of :data:`AXIS_NAME_WIDTH`."""
-    return fit_label(name, width=AXIS_NAME_WIDTH, lines=1)
 
 
 def _two_lines(first: str, second: str, width: int = 2 * AXIS_NAME_WIDTH) -> str:
@@ -584,7 +576,7 @@ def method_scatter(
         ax.set_xlim(lims)
         ax.set_ylim(lims)
         ax.set_aspect("equal", adjustable="box")
-        ax.set_xlabel(f"{_name(reference_name)}, {axis_label}")
-        ax.set_ylabel(f"{_name(test_name)}, {axis_label}")
+        ax.set_xlabel(f"{fit_axis_name(reference_name)}, {axis_label}")
+        ax.set_ylabel(f"{fit_axis_name(test_name)}, {axis_label}")
         _legend_above(ax, handles, group_handles)
     return ax

@@ -68,6 +68,11 @@ _RECEIVED: list[int] = []
 Python ignores exceptions, e.g. in fork hooks; this record is not)."""
 
 
+_ENDING = ("SIGTERM", "SIGHUP")
+"""Signals that end a process (besides SIGINT, which a terminal sends to the whole group)."""
+_HANDLED = ("SIGINT", *_ENDING)
+
+
 def raise_if_interrupted() -> None:
     """Raise :class:`RunInterrupted` if a signal arrived while a destination was open."""
     if _RECEIVED:
@@ -76,6 +81,24 @@ def raise_if_interrupted() -> None:
 
 def _real(path: str | Path) -> Path:
     return Path(os.path.realpath(path))
+
+
+def _created_parents(path: Path) -> list[Path]:
+    """Ancestors of ``path`` that do not exist yet, deepest first."""
+    missing = []
+    parent = path.parent
+    while not parent.exists():
+        missing.append(parent)
+        parent = parent.parent
+    return missing
+
+
+def _check_creatable(path: Path, what: str) -> None:
+    """Refuse ``path`` when the nearest existing ancestor is a file, not a folder."""
+    missing = _created_parents(path)
+    ancestor = (missing[-1] if missing else path).parent
+    if not ancestor.is_dir():
+        raise OutputFolderError(f"cannot create {what}: {str(ancestor)!r} is a file")
 
 
 def _manifest_outputs(folder: Path) -> set[str] | None:
@@ -121,19 +144,6 @@ def foreign_entries(folder: Path) -> list[str]:
             if relative not in listed or (Path(root) / name).is_symlink():
                 foreign.append(relative)
     return sorted(foreign)
-
-
-def earlier_output_files(folder: Path) -> list[str] | None:
-    """The files an earlier ``cohort run`` wrote into ``folder``, from its manifest, when
-    ``folder`` holds nothing else (:func:`foreign_entries`); otherwise ``None``."""
-    listed = _manifest_outputs(folder)
-    if listed is None or foreign_entries(folder):
-        return None
-    return sorted(
-        (Path(root) / name).relative_to(folder).as_posix()
-        for root, _, files in os.walk(folder)
-        for name in files
-    )
 
 
 def check_destination(
@@ -183,11 +193,7 @@ def check_destination(
             )
     if out.exists() and not out.is_dir():
         raise OutputFolderError(f"output folder {given!r} is a file, not a folder")
-    ancestor = out.parent
-    while not ancestor.exists():
-        ancestor = ancestor.parent
-    if not ancestor.is_dir():
-        raise OutputFolderError(f"cannot create {given!r}: {str(ancestor)!r} is a file")
+    _check_creatable(out, repr(given))
     if out.is_dir() and any(out.iterdir()):
         foreign = foreign_entries(out)
         if foreign:
@@ -250,9 +256,10 @@ def _looks_like_lock(path: Path) -> bool:
     try:
         if not path.is_file() or path.stat().st_size > 32:
             return False
-        return path.read_text(encoding="ascii").strip().isdigit() or path.stat().st_size == 0
+        text = path.read_text(encoding="ascii")
     except (OSError, UnicodeDecodeError):
         return False
+    return text == "" or text.strip().isdigit()
 
 
 def _unlock(path: Path, fd: int) -> None:
@@ -263,17 +270,12 @@ def _unlock(path: Path, fd: int) -> None:
 
 
 def _remove_listed(folder: Path, files: list[str]) -> bool:
-    """Remove the listed files (plain files only, never through a link), then the folders
-    left empty; whether ``folder`` is gone."""
+    """Remove the listed files (plain files whose real path lies inside ``folder``: never
+    through a link), then the folders left empty; whether ``folder`` is gone."""
     inside = _real(folder)
     for name in files:
         path = folder / name
-        if (
-            path.is_file()
-            and not path.is_symlink()
-            and not _has_link(folder, path)
-            and _real(path).is_relative_to(inside)
-        ):
+        if path.is_file() and not path.is_symlink() and _real(path).is_relative_to(inside):
             path.unlink()
     for root, _, _ in sorted(os.walk(folder), key=lambda w: -len(w[0])):
         try:
@@ -281,21 +283,6 @@ def _remove_listed(folder: Path, files: list[str]) -> bool:
         except OSError:
             pass
     return not folder.exists()
-
-
-def _has_link(folder: Path, path: Path) -> bool:
-    """Whether a folder between ``folder`` and ``path`` is a symbolic link."""
-    return any(p.is_symlink() for p in path.parents if p.is_relative_to(folder) and p != folder)
-
-
-def _created_parents(out: Path) -> list[Path]:
-    """Ancestors of ``out`` that do not exist yet, deepest first."""
-    missing = []
-    parent = out.parent
-    while not parent.exists():
-        missing.append(parent)
-        parent = parent.parent
-    return missing
 
 
 class Destination:
@@ -391,8 +378,7 @@ class Destination:
 def _signals_held() -> Iterator[None]:
     """Hold SIGINT, SIGTERM and SIGHUP back (POSIX) while the folders are swapped, so that the
     swap is never left half done; a signal that arrived meanwhile is delivered afterwards."""
-    names = ("SIGINT", "SIGTERM", "SIGHUP")
-    held = {getattr(signal, n) for n in names if hasattr(signal, n)}
+    held = {getattr(signal, n) for n in _HANDLED if hasattr(signal, n)}
     mask = getattr(signal, "pthread_sigmask", None)
     if mask is None or threading.current_thread() is not threading.main_thread():
         yield  # pragma: no cover - not POSIX
@@ -435,11 +421,10 @@ def _in_forked_child() -> None:
     and SIGHUP end it at once, and SIGINT (sent by a terminal to the whole process group)
     is left to the parent, which ends its workers."""
     _RECEIVED.clear()
-    for name, action in (("SIGINT", signal.SIG_IGN), ("SIGTERM", signal.SIG_DFL)):
-        if signal.getsignal(getattr(signal, name)) is _interrupt:
-            signal.signal(getattr(signal, name), action)
-    if hasattr(signal, "SIGHUP") and signal.getsignal(signal.SIGHUP) is _interrupt:
-        signal.signal(signal.SIGHUP, signal.SIG_DFL)
+    for name, action in (("SIGINT", signal.SIG_IGN), *((n, signal.SIG_DFL) for n in _ENDING)):
+        signum = getattr(signal, name, None)
+        if signum is not None and signal.getsignal(signum) is _interrupt:
+            signal.signal(signum, action)
 
 
 if hasattr(os, "register_at_fork"):
@@ -455,8 +440,7 @@ def _interruptible() -> Iterator[None]:
     if threading.current_thread() is not threading.main_thread():
         yield
         return
-    names = ("SIGINT", "SIGTERM", "SIGHUP")
-    signums = [getattr(signal, n) for n in names if hasattr(signal, n)]
+    signums = [getattr(signal, n) for n in _HANDLED if hasattr(signal, n)]
     previous = {s: signal.getsignal(s) for s in signums}
     hook = sys.unraisablehook
 
@@ -502,11 +486,7 @@ class ReservedFile:
                 f"{what} {given!r} exists and is not one that cohort wrote; it is left as it "
                 "is: give a new file"
             )
-        ancestor = self.path.parent
-        while not ancestor.exists():
-            ancestor = ancestor.parent
-        if not ancestor.is_dir():
-            raise OutputFolderError(f"cannot create {what} {given!r}: {str(ancestor)!r} is a file")
+        _check_creatable(self.path, f"{what} {given!r}")
         try:
             self.path.parent.mkdir(parents=True, exist_ok=True)
             handle, temporary = tempfile.mkstemp(prefix=f".{self.path.name}.", dir=self.path.parent)

@@ -51,6 +51,7 @@ from .style import (
     FIGURE_WIDTHS_MM,
     MM_PER_INCH,
     figure_size,
+    fit_axis_name,
     fit_label,
     group_styles,
     save_figure,
@@ -777,8 +778,8 @@ def _difference_figures(study: Study) -> Iterator[_Item]:
                 col_order=[names[g] for g in groups],
                 width=_grid_width(len(groups)),
                 colorbar_label=(
-                    f"{fit_label(method, 24, 1)} \N{MINUS SIGN} "
-                    f"{fit_label(study.reference, 24, 1)}\n"
+                    f"{fit_axis_name(method)} \N{MINUS SIGN} "
+                    f"{fit_axis_name(study.reference)}\n"
                     f"median difference ({_unit(parameter)})"
                 ),
                 **limits,

@@ -19,7 +19,6 @@ from __future__ import annotations
 
 import csv
 import io
-import os
 import re
 from collections.abc import Iterator
 from dataclasses import dataclass, field
@@ -50,6 +49,11 @@ MAX_CELL_PROBLEMS = 20
 """Cells with an error value or an uncalculated formula listed one by one per file; the rest
 are counted in one more problem."""
 
+_ERROR_EXPECTED = "a value (correct the formula or leave the cell empty for a missing value)"
+_UNCALCULATED_EXPECTED = (
+    "a value: open and save the workbook in a spreadsheet program, or replace the formula by "
+    "its value"
+)
 _SAVE_AS_UTF8 = (
     "UTF-8 text: save the file as UTF-8 (with or without a byte-order mark) and read it again"
 )
@@ -152,7 +156,7 @@ def read_table(path: str | Path) -> RawTable:
         # the readers' messages repeat the path given: name the file only (it may sit in
         # a folder whose name identifies a person)
         message = str(exc)
-        for spelling in {str(path), str(Path(path).resolve()), os.fspath(path)}:
+        for spelling in {str(path), str(path.resolve())}:
             message = message.replace(spelling, name)
         raise StudyError(
             [Problem("file-unreadable", f"cannot read file: {message}", file=name)]
@@ -198,7 +202,7 @@ def _error_value_problems(
             row=row,
             column=original.get(column, column),
             value=text,
-            expected="a value (correct the formula or leave the cell empty for a missing value)",
+            expected=_ERROR_EXPECTED,
         )
         for row, _, column, text in found
     ]
@@ -239,32 +243,27 @@ def _workbook_cell_problems(path: Path, sheet: str) -> list[Problem]:
             where = f"{get_column_letter(stored.column)}{stored.row}"
             column = header.get(stored.column, get_column_letter(stored.column))
             if stored.data_type == "e":
-                problems.append(
-                    Problem(
-                        ERROR_VALUE_CODE,
-                        f"cell {where} holds the spreadsheet error {stored.value}, not a value",
-                        file=path.name,
-                        row=stored.row,
-                        column=column,
-                        value=str(stored.value),
-                        expected="a value (correct the formula or leave the cell empty "
-                        "for a missing value)",
-                    )
-                )
+                code, shown, expected = ERROR_VALUE_CODE, stored.value, _ERROR_EXPECTED
+                detail = f"cell {where} holds the spreadsheet error {stored.value}, not a value"
             elif formula.data_type == "f" and stored.value is None and stored.data_type != "str":
-                problems.append(
-                    Problem(
-                        UNCALCULATED_CODE,
-                        f"cell {where} holds a formula without a calculated value (the "
-                        "workbook was written by a program that did not calculate it)",
-                        file=path.name,
-                        row=stored.row,
-                        column=column,
-                        value=str(formula.value),
-                        expected="a value: open and save the workbook in a spreadsheet "
-                        "program, or replace the formula by its value",
-                    )
+                code, shown, expected = UNCALCULATED_CODE, formula.value, _UNCALCULATED_EXPECTED
+                detail = (
+                    f"cell {where} holds a formula without a calculated value (the workbook "
+                    "was written by a program that did not calculate it)"
                 )
+            else:
+                continue
+            problems.append(
+                Problem(
+                    code,
+                    detail,
+                    file=path.name,
+                    row=stored.row,
+                    column=column,
+                    value=str(shown),
+                    expected=expected,
+                )
+            )
     return problems
 
 
@@ -417,14 +416,15 @@ def _decode(data: bytes, name: str) -> str:
             )
     nul = data.find(b"\x00")
     if nul >= 0:  # UTF-16 or UTF-32 without a byte-order mark, or not a text file
+        line = _line_of(data, nul)
         raise StudyError(
             [
                 Problem(
                     ENCODING_CODE,
-                    f"line {_line_of(data, nul)} holds a NUL byte (byte {nul + 1}): the file "
-                    "looks like UTF-16 or UTF-32 text, or is not a text file",
+                    f"line {line} holds a NUL byte (byte {nul + 1}): the file looks like "
+                    "UTF-16 or UTF-32 text, or is not a text file",
                     file=name,
-                    row=_line_of(data, nul),
+                    row=line,
                     expected=_SAVE_AS_UTF8,
                 )
             ]

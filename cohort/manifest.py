@@ -39,6 +39,7 @@ def build_manifest(
     *,
     inputs: Mapping[str, Path],
     input_names: Mapping[str, str | None] | None = None,
+    digests: Mapping[str, str] | None = None,
     settings: Mapping[str, Any],
     options: Mapping[str, Any],
     started: str,
@@ -51,16 +52,19 @@ def build_manifest(
 
     Inputs are recorded by role with their SHA-256 and size, and by the name in
     ``input_names`` (relative to the study file; ``None`` in a pseudonymised run): never by
-    absolute path, which can hold a person's name or number.
+    absolute path, which can hold a person's name or number. ``digests`` are SHA-256 hashes
+    the caller already computed (a run hashes its inputs to see that they did not change);
+    inputs without one are hashed here.
     """
     names = dict(input_names or {})
+    digests = dict(digests or {})
     return {
         "tool": "cohort",
         "caution": "Research use only; not a diagnostic device. Thresholds need local validation.",
         "inputs": {
             key: {
                 "name": names.get(key, Path(path).name),
-                "sha256": sha256(path),
+                "sha256": digests.get(key) or sha256(path),
                 "bytes": Path(path).stat().st_size,
             }
             for key, path in inputs.items()

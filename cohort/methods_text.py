@@ -83,11 +83,8 @@ def _threshold_sentences(thresholds: pd.DataFrame) -> list[str]:
 def _plausibility_sentence(settings) -> str:
     """The plausibility limits applied when the values were read, and what they did."""
     c = settings.checks
-    ff = (
-        f"{-c.ff_below_zero_tolerance:g} to {100 + c.ff_above_100_tolerance:g} %"
-        if settings.ff_unit == "percent"
-        else f"{-c.ff_below_zero_tolerance / 100:g} to {1 + c.ff_above_100_tolerance / 100:g}"
-    )
+    low, high = c.ff_limits(settings.ff_unit)
+    ff = f"{low:g} to {high:g}" + (" %" if settings.ff_unit == "percent" else "")
     action = (
         "values outside them were excluded and listed with the limit they broke"
         if c.implausible == "exclude"

@@ -45,7 +45,7 @@ import difflib
 import math
 import numbers
 from collections.abc import Callable, Mapping
-from dataclasses import asdict, dataclass, field, fields, replace
+from dataclasses import asdict, dataclass, field, replace
 from types import MappingProxyType
 from typing import TYPE_CHECKING, Any
 
@@ -506,20 +506,15 @@ def options_from_table(
         )
     if problems:
         raise StudyError(problems)
-    values = {**dict(table or {}), **given}
-    known = {f.name for f in fields(RunOptions)}
-    converted = {
-        k: tuple(str(s).strip() for s in v) if isinstance(v, list | tuple) else v
-        for k, v in values.items()
-        if k in known
-    }
-    for key in ("seed", "n_boot", "pb_max_pairs", "workers"):
-        if key in converted:
-            converted[key] = int(converted[key])
-    for key in ("confidence_level", "error_ratio", "ccc_min", "sensitivity_max", "bias_ratio"):
-        if key in converted:
-            converted[key] = float(converted[key])
-    return replace(RunOptions(), **converted)
+    values = {**dict(table or {}), **given}  # every key checked above: all are options
+    return replace(RunOptions(), **{k: _as_option(v, OVERRIDE_RULES[k]) for k, v in values.items()})
+
+
+def _as_option(value: Any, rule: Rule) -> Any:
+    """A checked value as :class:`RunOptions` holds it (the rule's kind says which type)."""
+    if isinstance(value, list | tuple):
+        return tuple(str(s).strip() for s in value)
+    return {"integer": int, "number": float}.get(rule.kind, lambda v: v)(value)
 
 
 def options_from_study(study: Study, **overrides: Any) -> RunOptions:

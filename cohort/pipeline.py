@@ -30,7 +30,7 @@ from .results import CohortWarning
 from .segments import SEGMENTS
 from .study import Study
 from .swaps import swap_screen_with
-from .thresholds import SwapOptions, parse_findings, parse_swap_options, thresholds_table
+from .thresholds import SwapOptions, parse_findings_table, thresholds_table
 
 Progress = Callable[[str], None]
 
@@ -88,8 +88,9 @@ def analyse(
         return result
 
     source = study.settings.input_name(study.settings.study_file) or "study settings"
-    definitions = parse_findings(study.settings.extra.get("findings"), file=source)
-    swap_options = parse_swap_options(study.settings.extra.get("findings"), file=source)
+    definitions, swap_options = parse_findings_table(
+        study.settings.extra.get("findings"), file=source
+    )
     findings = step(
         "findings",
         "classifying findings",

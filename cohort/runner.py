@@ -135,6 +135,7 @@ def run(
         outputs += ["report.html", "manifest.json"]
         manifest = build_manifest(
             inputs=inputs,
+            digests=after,
             input_names={
                 k: None if pseudonymized else study.settings.input_name(p)
                 for k, p in inputs.items()

@@ -90,6 +90,12 @@ class Checks:
     fraction; ``true`` confirms that the values really are percent (a cohort with almost no
     fat) and turns the refusal into a warning."""
 
+    def ff_limits(self, ff_unit: str) -> tuple[float, float]:
+        """The plausible fat-fraction range ``(low, high)`` in the declared unit: 0-100 %
+        widened by the tolerances (in percentage points), or the same as a 0-1 fraction."""
+        low, high = -self.ff_below_zero_tolerance, 100.0 + self.ff_above_100_tolerance
+        return (low, high) if ff_unit == "percent" else (low / 100.0, high / 100.0)
+
 
 @dataclass(frozen=True)
 class StudySettings:

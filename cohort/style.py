@@ -138,6 +138,15 @@ LABEL_WIDTH = 28
 LABEL_LINES = 2
 """Lines a name drawn in a figure may take before it is cut with an ellipsis."""
 ELLIPSIS = "\N{HORIZONTAL ELLIPSIS}"
+AXIS_NAME_WIDTH = 24
+"""Characters of a method name in an axis or colour-bar label: one line, then an ellipsis
+(:func:`fit_axis_name`)."""
+
+
+def fit_axis_name(name: object) -> str:
+    """A method name as drawn in an axis or colour-bar label: one line of
+    :data:`AXIS_NAME_WIDTH` characters (:func:`fit_label`)."""
+    return fit_label(name, width=AXIS_NAME_WIDTH, lines=1)
 
 
 def fit_label(text: object, width: int = LABEL_WIDTH, lines: int = LABEL_LINES) -> str:

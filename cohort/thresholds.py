@@ -563,9 +563,11 @@ FINDINGS_SCHEMA = TableSchema(keys=FINDINGS_RULES, entries=FINDING_RULES, check=
 """Schema of the ``[findings]`` table for :func:`cohort.options.check_document`."""
 
 
-def _parse(
-    table: Mapping[str, Any] | None, file: str
+def parse_findings_table(
+    table: Mapping[str, Any] | None, file: str = "study file"
 ) -> tuple[tuple[FindingDefinition, ...], SwapOptions]:
+    """The finding definitions and the swap-screen options of a ``[findings]`` table, in one
+    pass (:func:`parse_findings` and :func:`parse_swap_options` give one of the two)."""
     table = dict(table or {})
     problems = check_table("findings", table, FINDINGS_SCHEMA, file)
     if problems:
@@ -582,13 +584,13 @@ def parse_findings(
     :class:`~cohort.problems.StudyError` (code ``study-option``, located in ``file``) listing
     every problem.
     """
-    return _parse(table, file)[0]
+    return parse_findings_table(table, file)[0]
 
 
 def parse_swap_options(table: Mapping[str, Any] | None, file: str = "study file") -> SwapOptions:
     """Swap-screen options from the ``[findings]`` table (``magnitude_only_methods``,
     ``swap_margin``); raises :class:`~cohort.problems.StudyError` like :func:`parse_findings`."""
-    return _parse(table, file)[1]
+    return parse_findings_table(table, file)[1]
 
 
 THRESHOLDS_COLUMNS = (

@@ -9,6 +9,7 @@ column; the rest are counted in one further problem.
 from __future__ import annotations
 
 import re
+from collections.abc import Callable
 
 import numpy as np
 import pandas as pd
@@ -71,6 +72,36 @@ def _flag(
             f"first at row {rows[PER_CODE]}",
             file=file,
             column=column,
+        )
+
+
+def _flag_per_column(
+    log: ProblemLog,
+    long: pd.DataFrame,
+    mask: pd.Series | np.ndarray,
+    *,
+    code: str,
+    detail: str,
+    file: str,
+    text_column: str,
+    expected: str | Callable[[pd.Index], str],
+) -> None:
+    """:func:`_flag` over the rows of the long values table under ``mask``, one run per
+    source column, so that each problem names the user's column; ``expected`` may depend
+    on the flagged rows of a column (a function of their index)."""
+    for source_column, part in long[np.asarray(mask, dtype=bool)].groupby(
+        "source_column", sort=False
+    ):
+        _flag(
+            log,
+            np.ones(len(part), dtype=bool),
+            part,
+            code=code,
+            detail=detail,
+            file=file,
+            column=str(source_column),
+            values=long.loc[part.index, text_column],
+            expected=expected(part.index) if callable(expected) else expected,
         )
 
 
@@ -306,33 +337,29 @@ def check_values(raw: RawTable, settings: StudySettings, log: ProblemLog) -> pd.
 
     numbers, blank, bad = parse_numbers(long["value"])
     comma = long["value"].str.strip().str.match(_COMMA_DECIMAL)
-    for source_column, part in long[bad.to_numpy()].groupby("source_column", sort=False):
-        index = part.index
-        _flag(
-            log,
-            np.ones(len(part), dtype=bool),
-            part,
-            code="not-numeric",
-            detail="value is not a number",
-            file=name,
-            column=str(source_column),
-            values=long.loc[index, "value"],
-            expected="a number with a decimal point (e.g. 12.5), or a blank cell for missing"
-            + ("; decimal commas are not read" if comma[index].any() else ""),
-        )
-    infinite = np.isinf(numbers.to_numpy())
-    for source_column, part in long[infinite].groupby("source_column", sort=False):
-        _flag(
-            log,
-            np.ones(len(part), dtype=bool),
-            part,
-            code="not-finite",
-            detail="value is infinite",
-            file=name,
-            column=str(source_column),
-            values=long.loc[part.index, "value"],
-            expected="a finite number, or a blank cell for missing",
-        )
+    _flag_per_column(
+        log,
+        long,
+        bad,
+        code="not-numeric",
+        detail="value is not a number",
+        file=name,
+        text_column="value",
+        expected=lambda index: (
+            "a number with a decimal point (e.g. 12.5), or a blank cell for missing"
+            + ("; decimal commas are not read" if comma[index].any() else "")
+        ),
+    )
+    _flag_per_column(
+        log,
+        long,
+        np.isinf(numbers.to_numpy()),
+        code="not-finite",
+        detail="value is infinite",
+        file=name,
+        text_column="value",
+        expected="a finite number, or a blank cell for missing",
+    )
     long["value_text"] = long["value"]
     long["input_value"] = numbers.where(~np.isinf(numbers))
     long["blank"] = blank
@@ -394,18 +421,16 @@ def flag_implausible(
         fresh = mask & long[IMPLAUSIBLE].eq("").to_numpy()
         long.loc[fresh, IMPLAUSIBLE] = f"implausible: {rule}"
         return
-    for source_column, part in long[mask].groupby("source_column", sort=False):
-        _flag(
-            log,
-            np.ones(len(part), dtype=bool),
-            part,
-            code="implausible-value",
-            detail=detail,
-            file=name,
-            column=str(source_column),
-            values=long.loc[part.index, "value_text"],
-            expected=expected,
-        )
+    _flag_per_column(
+        log,
+        long,
+        mask,
+        code="implausible-value",
+        detail=detail,
+        file=name,
+        text_column="value_text",
+        expected=expected,
+    )
 
 
 def report_excluded_implausible(long: pd.DataFrame, log: ProblemLog, name: str) -> None:
@@ -438,7 +463,7 @@ def _check_ranges(long: pd.DataFrame, settings: StudySettings, log: ProblemLog, 
 
     ff = long["parameter"].eq("ff") & v.notna()
     if settings.ff_unit == "percent":
-        low, high = -checks.ff_below_zero_tolerance, 100 + checks.ff_above_100_tolerance
+        low, high = checks.ff_limits("percent")
         _check_percent_scale(long, ff, checks.ff_percent_confirmed, log, name)
         flag(
             ff & ((v < low) | (v > high)),
@@ -448,7 +473,7 @@ def _check_ranges(long: pd.DataFrame, settings: StudySettings, log: ProblemLog, 
             "ff_above_100_tolerance)",
         )
     else:
-        low, high = -checks.ff_below_zero_tolerance / 100, 1 + checks.ff_above_100_tolerance / 100
+        low, high = checks.ff_limits("fraction")
         above = ff & (v > high)
         if above.sum() > 0.5 * ff.sum():
             rows = long[above]
