@@ -3,13 +3,14 @@
 Cohort (invented): 10,000 subjects x 17 segments x 2 test methods (plus the reference) x 3
 parameters = 1,020,000 pairs; B = 2000 subject cluster bootstrap resamples.
 
-1. The agreement engine: ``agreement_table`` with every statistic of cohort.agreement,
-   cohort.correlation and cohort.concordance and its B = 2000 bootstrap (one pass per row),
-   strata ("all",) and ("all", "group"), with the two cohort.regression calls replaced by a
+1. The agreement engine: ``agreement_table`` with every statistic of cohort.stats.agreement,
+   cohort.stats.correlation and cohort.stats.concordance and its
+   B = 2000 bootstrap (one pass per row),
+   strata ("all",) and ("all", "group"), with the two cohort.stats.regression calls replaced by a
    stand-in that returns at once (they are another module's cost).
 2. The whole table with Passing-Bablok and Deming at their analytic intervals
    (``regression_n_boot=0``; their cluster bootstrap refits per resample, see
-   cohort.regression and its own benchmark).
+   cohort.stats.regression and its own benchmark).
 3. Peak memory of the engine runs (tracemalloc, separate run) and the process peak RSS.
 4. A straightforward per-resample pandas implementation of the same bootstrap
    (tests/test_bootstrap.py:naive_bootstrap, checked there to give identical numbers) against
@@ -37,11 +38,11 @@ import pandas as pd
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-from cohort import agreement_table as table_module
-from cohort.agreement_table import agreement_table
-from cohort.regression import MethodRegression
-from cohort.results import ConfidenceInterval
-from cohort.segments import SEGMENTS
+from cohort.analysis import agreement_table as table_module
+from cohort.analysis.agreement_table import agreement_table
+from cohort.domain.segments import SEGMENTS
+from cohort.stats.regression import MethodRegression
+from cohort.stats.results import ConfidenceInterval
 from tests.test_bootstrap import fast_bootstrap, invented_cohort, naive_bootstrap
 
 GROUPS = ("control", "acute", "chronic")

@@ -16,7 +16,7 @@ import time
 
 import numpy as np
 
-from cohort.correlation import repeated_measures_correlation
+from cohort.stats.correlation import repeated_measures_correlation
 
 
 def main() -> None:

@@ -4,7 +4,7 @@ Cohort (invented demo, cohort.demo.make_demo): 10,000 subjects x 17 segments x 2
 (reference and one test method) x 3 parameters = 1,020,000 values, three groups. The
 study tables are built from the demo in memory in the layout of ``Study.values``,
 ``Study.subjects`` and ``Study.paired`` (field referenced to the subject median, as the
-loader does), so only cohort.groups is timed. Findings for the timing (benchmark
+loader does), so only cohort.analysis.groups is timed. Findings for the timing (benchmark
 definitions, not study defaults): hemorrhage = R2* > 50 1/s at 1.5 T or > 79 1/s at 3 T
 (O'Regan 2009; Storey 2007 scaling, see DOMAIN.md), and |field| > 20 Hz, per segment; a
 subject is positive when any segment is.
@@ -33,9 +33,9 @@ import pandas as pd
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-from cohort import groups
+from cohort.analysis import groups
 from cohort.demo import REFERENCE, make_demo
-from cohort.segments import SEGMENTS
+from cohort.domain.segments import SEGMENTS
 
 
 def study_frames(n_subjects: int, seed: int = 20261202):

@@ -17,7 +17,7 @@ import time
 
 import numpy as np
 
-from cohort import regression
+from cohort.stats import regression
 
 
 def cohort(n_subjects: int, decimals: int | None, seed: int = 1):

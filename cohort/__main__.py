@@ -8,7 +8,7 @@ import sys
 
 def main() -> int:
     try:
-        from .cli import main as command_line
+        from cohort.cli import main as command_line
     except KeyboardInterrupt:
         print("cohort: interrupted while starting; nothing was written", file=sys.stderr)
         return 130

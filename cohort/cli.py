@@ -14,11 +14,11 @@ import warnings
 from collections.abc import Sequence
 from pathlib import Path
 
-from .cautions import CAUTION
-from .destination import OutputFolderError, ReservedFile, check_destination
-from .problems import StudyError, format_problems
-from .settings import StudySettings, build_settings, read_study_file
-from .study import load_study
+from cohort.domain.cautions import CAUTION
+from cohort.domain.problems import StudyError, format_problems
+from cohort.io.settings import StudySettings, build_settings, read_study_file
+from cohort.io.study import load_study
+from cohort.report.destination import OutputFolderError, ReservedFile, check_destination
 
 
 def _add_study_arguments(parser: argparse.ArgumentParser) -> None:
@@ -84,9 +84,9 @@ def _input_paths(settings: StudySettings, *extra: str | None) -> list[Path]:
 
 def _is_code_list(path: Path) -> bool:
     """Whether ``path`` is a code list written by ``cohort run --pseudonymize`` (its header
-    is exactly :data:`cohort.pseudonyms.CODE_LIST_COLUMNS`): the only kind of existing file
+    is exactly :data:`cohort.io.pseudonyms.CODE_LIST_COLUMNS`): the only kind of existing file
     that a new code list may replace."""
-    from .pseudonyms import CODE_LIST_COLUMNS
+    from cohort.io.pseudonyms import CODE_LIST_COLUMNS
 
     try:
         with path.open(encoding="utf-8") as handle:
@@ -110,8 +110,8 @@ def _reserve_code_list(args: argparse.Namespace, inputs: list[Path]) -> Reserved
 
 
 def cmd_run(args: argparse.Namespace) -> int:
-    from .pipeline import options_from_study
-    from .runner import run
+    from cohort.analysis.pipeline import options_from_study
+    from cohort.report.runner import run
 
     settings = settings_from_args(args)
     inputs = _input_paths(settings, args.key_file)
@@ -120,7 +120,7 @@ def cmd_run(args: argparse.Namespace) -> int:
     try:
         study = load_study(settings)
         if args.pseudonymize:
-            from .pseudonyms import load_key, pseudonymize_study
+            from cohort.io.pseudonyms import load_key, pseudonymize_study
 
             study, codes = pseudonymize_study(study, load_key(args.key_file))
         options = options_from_study(
@@ -156,7 +156,7 @@ def cmd_run(args: argparse.Namespace) -> int:
 
 
 def cmd_demo(args: argparse.Namespace) -> int:
-    from .demo import is_demo_folder, write_demo
+    from cohort.demo import is_demo_folder, write_demo
 
     folder = Path(args.folder)
     if folder.is_dir() and any(folder.iterdir()) and is_demo_folder(folder) and not args.force:
@@ -193,7 +193,7 @@ def build_parser() -> argparse.ArgumentParser:
         prog="cohort",
         description="Cohort statistics for myocardial multi-echo mapping studies. " + CAUTION,
     )
-    from . import __version__
+    from cohort import __version__
 
     parser.add_argument("--version", action="version", version=f"cohort {__version__}")
     sub = parser.add_subparsers(dest="command", required=True)

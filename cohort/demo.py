@@ -30,7 +30,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from .segments import SEGMENTS
+from cohort.domain.segments import SEGMENTS
 
 REFERENCE = "reference-fit"
 TEST = "quickmap"
@@ -201,8 +201,8 @@ def is_demo_folder(folder: str | Path) -> bool:
 def write_demo(folder: str | Path, n_subjects: int = 48, seed: int = 20261202) -> Path:
     """Write the demo cohort (values.csv, subjects.csv, planted_lesions.csv, study.toml) to
     ``folder``: a new or empty folder, or one holding an earlier demo (:func:`is_demo_folder`);
-    anything else raises :class:`~cohort.destination.OutputExistsError`."""
-    from .destination import OutputExistsError
+    anything else raises :class:`~cohort.report.destination.OutputExistsError`."""
+    from cohort.report.destination import OutputExistsError
 
     folder = Path(folder)
     if folder.exists() and (not folder.is_dir() or folder.is_symlink()):

@@ -7,9 +7,9 @@ from pathlib import Path
 
 import pytest
 
-from cohort.problems import StudyError
-from cohort.settings import build_settings
-from cohort.study import load_study
+from cohort.domain.problems import StudyError
+from cohort.io.settings import build_settings
+from cohort.io.study import load_study
 
 HEADER = ["subject", "method", "segment", "parameter", "value"]
 

@@ -14,11 +14,11 @@ import numpy as np
 import pandas as pd
 import pytest
 
+from cohort.analysis.findings import evaluate_findings
+from cohort.analysis.groups import subject_summaries
 from cohort.cli import main
-from cohort.findings import evaluate_findings
-from cohort.groups import subject_summaries
-from cohort.settings import Checks
-from cohort.study import load_study
+from cohort.io.settings import Checks
+from cohort.io.study import load_study
 
 from .conftest import HEADER, coded, problems_of, small_subjects, small_values, write_csv
 
@@ -219,7 +219,7 @@ def test_implausible_values_can_be_excluded_with_their_rule(make_study):
 
 def test_methods_text_states_the_plausibility_policy_that_ran(make_study):
     # the methods text states exactly what ran (project rule): limits and what they did
-    from cohort.methods_text import _plausibility_sentence
+    from cohort.report.methods_text import _plausibility_sentence
 
     refused = make_study(values=small_values())
     excluded = refused.with_options(checks=Checks(implausible="exclude", r2star_max=800.0))

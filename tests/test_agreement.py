@@ -1,4 +1,4 @@
-"""Tests of cohort.agreement against published values, registry libraries and definitions."""
+"""Tests of cohort.stats.agreement against published values, registry libraries and definitions."""
 
 from __future__ import annotations
 
@@ -16,14 +16,14 @@ from hypothesis import assume, given, settings
 from hypothesis import strategies as st
 from scipy import stats
 
-from cohort.agreement import (
+from cohort.stats.agreement import (
     bias,
     limits_of_agreement,
     proportional_bias,
     regression_based_limits,
     subject_mean_limits,
 )
-from cohort.results import NotEstimableWarning
+from cohort.stats.results import NotEstimableWarning
 
 matplotlib.use("Agg")
 import matplotlib.pyplot as plt

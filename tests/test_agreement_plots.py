@@ -1,4 +1,4 @@
-"""Tests of cohort.agreement_plots: the drawn artists against the plot definitions.
+"""Tests of cohort.plots.agreement_plots: the drawn artists against the plot definitions.
 
 - Bland JM, Altman DG. Lancet 1986;i:307-310: x = mean of the two methods, y = difference,
   horizontal lines at the bias and the limits of agreement.
@@ -22,9 +22,9 @@ import pytest
 from matplotlib.collections import PathCollection, PolyCollection
 from matplotlib.colors import to_rgba
 
-from cohort.agreement_plots import DENSITY_THRESHOLD, bland_altman_plot, method_scatter
-from cohort.style import CATEGORICAL, save_figure
-from cohort.units import PARAMETERS
+from cohort.domain.units import PARAMETERS
+from cohort.plots.agreement_plots import DENSITY_THRESHOLD, bland_altman_plot, method_scatter
+from cohort.plots.style import CATEGORICAL, save_figure
 
 LIMITS = {
     "bias": 0.4,

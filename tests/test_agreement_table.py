@@ -1,4 +1,4 @@
-"""Tests of cohort.agreement_table: layout, agreement with the statistics' own functions,
+"""Tests of cohort.analysis.agreement_table: layout, agreement with the statistics' own functions,
 determinism and not-estimable rows."""
 
 from __future__ import annotations
@@ -10,19 +10,19 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from cohort.agreement import (
+from cohort.analysis.agreement_table import AGREEMENT_COLUMNS, COLUMN_DESCRIPTIONS, agreement_table
+from cohort.domain.segments import SEGMENTS
+from cohort.parallel import can_fork
+from cohort.stats.agreement import (
     limits_of_agreement,
     proportional_bias,
     regression_based_limits,
     subject_mean_limits,
 )
-from cohort.agreement_table import AGREEMENT_COLUMNS, COLUMN_DESCRIPTIONS, agreement_table
-from cohort.concordance import concordance_correlation, icc_agreement
-from cohort.correlation import pearson, repeated_measures_correlation, spearman
-from cohort.parallel import can_fork
-from cohort.regression import deming, passing_bablok
-from cohort.results import NotEstimableWarning
-from cohort.segments import SEGMENTS
+from cohort.stats.concordance import concordance_correlation, icc_agreement
+from cohort.stats.correlation import pearson, repeated_measures_correlation, spearman
+from cohort.stats.regression import deming, passing_bablok
+from cohort.stats.results import NotEstimableWarning
 
 B = 100
 SEED = 31

@@ -15,9 +15,9 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from cohort.cli import main
-from cohort.problems import StudyError
-from cohort.settings import build_settings
-from cohort.study import load_study
+from cohort.domain.problems import StudyError
+from cohort.io.settings import build_settings
+from cohort.io.study import load_study
 
 from .conftest import HEADER, small_subjects, small_values, write_csv
 

@@ -1,4 +1,4 @@
-"""Tests of cohort.bootstrap: the sufficient-statistics cluster bootstrap.
+"""Tests of cohort.stats.bootstrap: the sufficient-statistics cluster bootstrap.
 
 The central check: on a small cohort, the fast bootstrap (per-subject sums, counts, matrix
 products) gives the same numbers as a straightforward per-resample implementation that
@@ -18,9 +18,9 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy import stats
 
-from cohort import bootstrap
-from cohort.agreement import ba2007_statistic, proportional_statistic, subject_mean_statistic
-from cohort.bootstrap import (
+from cohort.stats import bootstrap
+from cohort.stats.agreement import ba2007_statistic, proportional_statistic, subject_mean_statistic
+from cohort.stats.bootstrap import (
     cluster_bootstrap,
     paired_sums,
     paired_values,
@@ -28,8 +28,8 @@ from cohort.bootstrap import (
     resample_counts,
     resample_subjects,
 )
-from cohort.concordance import ccc_statistic, icc_statistic
-from cohort.correlation import pearson_statistic, rm_corr_statistic, spearman_statistic
+from cohort.stats.concordance import ccc_statistic, icc_statistic
+from cohort.stats.correlation import pearson_statistic, rm_corr_statistic, spearman_statistic
 
 
 def invented_cohort(n_subjects: int = 12, seed: int = 5, positive: bool = True) -> pd.DataFrame:
@@ -117,7 +117,7 @@ def naive_bootstrap(frame: pd.DataFrame, n_boot: int, seed: int) -> dict[str, np
     """Straightforward cluster bootstrap: rebuild each resample with pandas, recompute all.
 
     Uses the same resampled subjects as the fast implementation
-    (:func:`cohort.bootstrap.resample_subjects`, subjects in sorted label order); Spearman's
+    (:func:`cohort.stats.bootstrap.resample_subjects`, subjects in sorted label order); Spearman's
     rho uses the full-sample mid-ranks, as the fast implementation documents.
     """
     frame = frame.assign(

@@ -1,11 +1,11 @@
-"""Tests of cohort.bullseye (AHA layout drawn as patches) and cohort.style.
+"""Tests of cohort.plots.bullseye (AHA layout drawn as patches) and cohort.plots.style.
 
 The layout checks compare drawn patches, in display coordinates, with the bullseye of
 Cerqueira MD et al., Circulation 2002;105:539-542 (Figure of the 17-segment model): basal
 ring outermost, then mid and apical, apex in the centre; anterior at the top, septum on the
 viewer's left, lateral on the right, inferior at the bottom; basal and mid sectors of 60
 degrees, apical sectors of 90 degrees (13 top, 14 left, 15 bottom, 16 right). The expected
-angles below are written from that figure, not taken from cohort.segments.
+angles below are written from that figure, not taken from cohort.domain.segments.
 """
 
 from __future__ import annotations
@@ -28,9 +28,9 @@ from hypothesis import strategies as st
 from matplotlib.colors import Normalize, to_rgba
 from PIL import Image
 
-from cohort import style
-from cohort.bullseye import bullseye_grid, draw_bullseye
-from cohort.style import (
+from cohort.plots import style
+from cohort.plots.bullseye import bullseye_grid, draw_bullseye
+from cohort.plots.style import (
     MISSING_COLOUR,
     OKABE_ITO,
     colour_scale,

@@ -9,7 +9,7 @@ from pathlib import Path
 
 from cohort.cli import main
 from cohort.demo import write_demo
-from cohort.study import load_study
+from cohort.io.study import load_study
 
 from .conftest import HEADER, small_values, write_csv
 
@@ -98,7 +98,7 @@ def test_missing_study_file_exits_2():
 
 def test_warnings_on_the_command_line_are_plain_lines(tmp_path, capsys, monkeypatch):
     # a table longer than a worksheet (limit lowered here) warns while the tables are written
-    from cohort import outputs
+    from cohort.report import outputs
 
     study_file = write_demo(tmp_path / "demo", n_subjects=6)
     monkeypatch.setattr(outputs, "EXCEL_MAX_ROWS", 50)

@@ -1,4 +1,4 @@
-"""Tests of cohort.concordance: Lin's CCC and the ICC forms."""
+"""Tests of cohort.stats.concordance: Lin's CCC and the ICC forms."""
 
 from __future__ import annotations
 
@@ -12,8 +12,8 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy import stats
 
-from cohort.concordance import concordance_correlation, icc_agreement, icc_forms
-from cohort.results import NotEstimableWarning
+from cohort.stats.concordance import concordance_correlation, icc_agreement, icc_forms
+from cohort.stats.results import NotEstimableWarning
 
 # pingouin 0.7 calls pandas methods with inplace=..., deprecated in pandas 3.1: not ours.
 pytestmark = pytest.mark.filterwarnings("ignore:The inplace keyword")

@@ -1,4 +1,4 @@
-"""Tests of cohort.correlation against DOMAIN.md values, pingouin and scipy."""
+"""Tests of cohort.stats.correlation against DOMAIN.md values, pingouin and scipy."""
 
 from __future__ import annotations
 
@@ -10,8 +10,8 @@ import pingouin as pg
 import pytest
 from scipy import stats
 
-from cohort.correlation import pearson, repeated_measures_correlation, spearman
-from cohort.results import NotEstimableWarning
+from cohort.stats.correlation import pearson, repeated_measures_correlation, spearman
+from cohort.stats.results import NotEstimableWarning
 
 
 def cohort_like(n_subjects=40, seed=3):

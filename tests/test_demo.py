@@ -12,8 +12,8 @@ import pandas as pd
 import pytest
 
 from cohort import demo
-from cohort.pipeline import analyse, options_from_study
-from cohort.study import load_study
+from cohort.analysis.pipeline import analyse, options_from_study
+from cohort.io.study import load_study
 
 
 @pytest.fixture(scope="module")

@@ -19,19 +19,19 @@ from pathlib import Path
 
 import pytest
 
-from cohort import destination, runner
+from cohort.analysis.pipeline import options_from_study
 from cohort.cli import main
 from cohort.demo import write_demo
-from cohort.destination import (
+from cohort.io.pseudonyms import CODE_LIST_COLUMNS
+from cohort.io.study import load_study
+from cohort.parallel import can_fork, ordered_map
+from cohort.report import destination, runner
+from cohort.report.destination import (
     OutputExistsError,
     OutputFolderError,
     check_destination,
     writing_to,
 )
-from cohort.parallel import can_fork, ordered_map
-from cohort.pipeline import options_from_study
-from cohort.pseudonyms import CODE_LIST_COLUMNS
-from cohort.study import load_study
 
 FAST = ["--bootstrap", "0", "--no-figures", "--quiet"]
 

@@ -14,9 +14,7 @@ from statsmodels.stats.contingency_tables import mcnemar
 from statsmodels.stats.inter_rater import cohens_kappa
 from statsmodels.stats.proportion import proportion_confint
 
-from cohort.bootstrap import resample_subjects
-from cohort.demo import write_demo
-from cohort.detection import (
+from cohort.analysis.detection import (
     FINDINGS_AGREEMENT_COLUMNS,
     MISSED_COLUMNS,
     DeceptiveAgreementWarning,
@@ -29,11 +27,13 @@ from cohort.detection import (
     missed_findings,
     wilson_interval,
 )
-from cohort.findings import evaluate_findings
-from cohort.results import NotEstimableWarning
-from cohort.segments import SEGMENTS
-from cohort.study import load_study
-from cohort.thresholds import HEMORRHAGE, FindingDefinition
+from cohort.analysis.findings import evaluate_findings
+from cohort.demo import write_demo
+from cohort.domain.segments import SEGMENTS
+from cohort.domain.thresholds import HEMORRHAGE, FindingDefinition
+from cohort.io.study import load_study
+from cohort.stats.bootstrap import resample_subjects
+from cohort.stats.results import NotEstimableWarning
 
 # --- Wilson intervals ----------------------------------------------------------------------
 

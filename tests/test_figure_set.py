@@ -1,4 +1,4 @@
-"""Tests of cohort.figure_set: the report's figures drawn from given tables and saved.
+"""Tests of cohort.figures.figure_set: the report's figures drawn from given tables and saved.
 
 The study is the invented demo cohort (12 subjects) and the tables are small fakes with the
 documented columns, so every expected number here is computed in the test from the study's
@@ -26,25 +26,25 @@ import pandas as pd
 import pytest
 from matplotlib.colors import to_rgba
 
-from cohort import figure_set
-from cohort.bullseye import OUTLINE_COLOUR, OUTLINE_WIDTH
 from cohort.demo import write_demo
-from cohort.figure_set import (
+from cohort.domain.units import PARAMETERS
+from cohort.figures import figure_set
+from cohort.figures.figure_set import (
     FINDINGS_REQUIRED,
     SECTIONS,
     FigureRecord,
     FigureSet,
     make_figures,
 )
+from cohort.io.study import load_study
 from cohort.parallel import can_fork
-from cohort.study import load_study
-from cohort.units import PARAMETERS
+from cohort.plots.bullseye import OUTLINE_COLOUR, OUTLINE_WIDTH
 
 PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"  # PNG specification (W3C 2003), section 5.2
 SVG_NAMESPACE = "{http://www.w3.org/2000/svg}"  # SVG 1.1 (W3C 2011), section 5.1
 
 # Demo thresholds for the fake findings table: R2* > 50 1/s at 1.5 T, 79 1/s at 3 T
-# (the package defaults of cohort.thresholds, common practice), fat fraction >= 10 %.
+# (the package defaults of cohort.domain.thresholds, common practice), fat fraction >= 10 %.
 HEMORRHAGE = {1.5: 50.0, 3.0: 79.0}
 FAT = 10.0
 
@@ -472,8 +472,8 @@ def test_field_group_plots_are_skipped_when_referenced_to_the_subject_median(dra
 
 def test_column_names_match_the_tables_of_the_package():
     """The constants name real columns of the agreement and findings tables."""
-    from cohort.agreement_table import AGREEMENT_COLUMNS
-    from cohort.findings import SEGMENT_COLUMNS
+    from cohort.analysis.agreement_table import AGREEMENT_COLUMNS
+    from cohort.analysis.findings import SEGMENT_COLUMNS
 
     used = [
         *figure_set.AGREEMENT_REQUIRED,
@@ -496,8 +496,8 @@ def test_column_names_match_the_tables_of_the_package():
 
 def test_real_tables_of_the_package_are_drawn(study, tmp_path):
     """Integration: the agreement table without bootstrap (no CI bands) and the findings."""
-    from cohort.agreement_table import agreement_table
-    from cohort.findings import evaluate_findings
+    from cohort.analysis.agreement_table import agreement_table
+    from cohort.analysis.findings import evaluate_findings
 
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
@@ -577,7 +577,7 @@ def test_long_names_are_in_full_in_the_captions_and_records(long_named):
 
 
 def test_long_names_are_shortened_in_the_drawn_text(study, tmp_path):
-    from cohort.style import ELLIPSIS, LABEL_WIDTH, fit_label
+    from cohort.plots.style import ELLIPSIS, LABEL_WIDTH, fit_label
 
     fitted = fit_label(LONG_A)
     assert fitted.endswith(ELLIPSIS)

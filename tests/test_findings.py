@@ -9,18 +9,18 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from cohort.demo import make_demo, write_demo
-from cohort.findings import (
+from cohort.analysis.findings import (
     SEGMENT_COLUMNS,
     SUBJECT_COLUMNS,
     TERRITORY_COLUMNS,
     evaluate_findings,
 )
-from cohort.problems import StudyError
-from cohort.results import NotEstimableWarning
-from cohort.segments import SEGMENTS
-from cohort.study import load_study
-from cohort.thresholds import FAT, FIELD_PERTURBATION, HEMORRHAGE, FindingDefinition
+from cohort.demo import make_demo, write_demo
+from cohort.domain.problems import StudyError
+from cohort.domain.segments import SEGMENTS
+from cohort.domain.thresholds import FAT, FIELD_PERTURBATION, HEMORRHAGE, FindingDefinition
+from cohort.io.study import load_study
+from cohort.stats.results import NotEstimableWarning
 
 
 def values_frame(table: dict, field_strength: dict | None = None, group: dict | None = None):

@@ -1,4 +1,4 @@
-"""Tests of cohort.group_plots on a small invented cohort (drawn artists, not statistics).
+"""Tests of cohort.plots.group_plots on a small invented cohort (drawn artists, not statistics).
 
 Box plots are matplotlib's (quartiles, Tukey whiskers at 1.5 IQR: Tukey JW, Exploratory
 Data Analysis, 1977 (memory)); checked here: one box per group and method, every value
@@ -17,10 +17,10 @@ import pandas as pd
 import pytest
 from matplotlib.colors import to_rgba
 
-from cohort.group_plots import group_distribution_plot, paired_lines_plot
-from cohort.results import CohortWarning
-from cohort.style import CATEGORICAL, save_figure
-from cohort.units import PARAMETERS
+from cohort.domain.units import PARAMETERS
+from cohort.plots.group_plots import group_distribution_plot, paired_lines_plot
+from cohort.plots.style import CATEGORICAL, save_figure
+from cohort.stats.results import CohortWarning
 
 
 @pytest.fixture(autouse=True)
@@ -157,7 +157,7 @@ def test_paired_lines_one_per_subject_from_reference_to_test():
 def test_paired_lines_many_subjects_one_collection_per_group():
     # above PAIRED_LINES_MAX subjects the lines of a group are one collection, segments in
     # subject order from (0, reference) to (1, test), with the group's colour and marker
-    from cohort.group_plots import PAIRED_LINES_MAX
+    from cohort.plots.group_plots import PAIRED_LINES_MAX
 
     rng = np.random.default_rng(4)
     n = PAIRED_LINES_MAX + 100

@@ -28,11 +28,11 @@ from statsmodels.stats.multitest import multipletests
 from statsmodels.stats.proportion import confint_proportions_2indep, proportion_confint
 from statsmodels.tools.sm_exceptions import ConvergenceWarning
 
-from cohort import groups as G
+from cohort.analysis import groups as G
 from cohort.demo import write_demo
+from cohort.io.study import load_study
 from cohort.parallel import can_fork
-from cohort.results import NotEstimableWarning
-from cohort.study import load_study
+from cohort.stats.results import NotEstimableWarning
 
 ORDER = ("control", "acute", "chronic")
 # Cerqueira et al. 2002 recommended territories (DOMAIN.md), written out independently

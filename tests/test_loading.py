@@ -1,4 +1,4 @@
-"""Tests of cohort.loading: the pyarrow path for plain delimited files gives exactly what the
+"""Tests of cohort.io.loading: the pyarrow path for plain delimited files gives exactly what the
 csv-module path gives (cells as text, spreadsheet row numbers, problems)."""
 
 from __future__ import annotations
@@ -8,8 +8,8 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from cohort import loading
-from cohort.problems import StudyError
+from cohort.domain.problems import StudyError
+from cohort.io import loading
 
 
 def _read(path, fast: bool, monkeypatch):

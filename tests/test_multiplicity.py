@@ -16,7 +16,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from statsmodels.stats.multitest import multipletests
 
-from cohort.multiplicity import (
+from cohort.stats.multiplicity import (
     BENJAMINI_HOCHBERG,
     HOLM,
     adjust_p,

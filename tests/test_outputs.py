@@ -8,9 +8,9 @@ import zipfile
 import pandas as pd
 import pytest
 
-from cohort import outputs
-from cohort.outputs import guard_text, write_tables
 from cohort.parallel import can_fork
+from cohort.report import outputs
+from cohort.report.outputs import guard_text, write_tables
 
 
 def test_text_that_a_spreadsheet_would_run_is_quoted():
@@ -99,10 +99,10 @@ def test_categorical_cells_are_guarded_and_keep_their_dtype(tmp_path):
 def test_a_study_with_formula_like_names_runs_and_is_guarded(tmp_path):
     # subject, method and group names that a spreadsheet would read as formulas: the run
     # completes (it once crashed after the analysis) and every table cell is guarded
+    from cohort.analysis.pipeline import options_from_study
     from cohort.demo import write_demo
-    from cohort.pipeline import options_from_study
-    from cohort.runner import run
-    from cohort.study import load_study
+    from cohort.io.study import load_study
+    from cohort.report.runner import run
 
     study_file = write_demo(tmp_path / "study", n_subjects=6)
     values = pd.read_csv(study_file.parent / "values.csv", dtype=str, keep_default_na=False)

@@ -14,7 +14,7 @@ from cohort.parallel import (
     ordered_map,
     resolve_workers,
 )
-from cohort.results import NotEstimableWarning
+from cohort.stats.results import NotEstimableWarning
 
 
 def _square_and_pid(x: int) -> tuple[int, int]:

@@ -5,10 +5,10 @@ from __future__ import annotations
 import pandas as pd
 import pytest
 
+from cohort.analysis.pipeline import analyse, options_from_study
 from cohort.demo import write_demo
-from cohort.pipeline import analyse, options_from_study
-from cohort.problems import StudyError
-from cohort.study import load_study
+from cohort.domain.problems import StudyError
+from cohort.io.study import load_study
 
 
 def test_swapped_fat_fractions_raise_an_alert(tmp_path):

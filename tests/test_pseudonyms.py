@@ -20,8 +20,8 @@ import pytest
 
 from cohort.cli import main
 from cohort.demo import write_demo
-from cohort.problems import Problem, StudyError
-from cohort.pseudonyms import (
+from cohort.domain.problems import Problem, StudyError
+from cohort.io.pseudonyms import (
     CODE_LIST_COLUMNS,
     DROPPED_COLUMN_CODE,
     IDENTIFYING_KIND,
@@ -33,8 +33,8 @@ from cohort.pseudonyms import (
     pseudonym,
     pseudonymize_study,
 )
-from cohort.settings import read_study_file
-from cohort.study import load_study
+from cohort.io.settings import read_study_file
+from cohort.io.study import load_study
 
 KEY = "a-long-enough-secret-for-tests"
 OTHER_KEY = "another-secret-of-enough-length"

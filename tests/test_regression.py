@@ -1,4 +1,4 @@
-"""Tests of cohort.regression against independent computations and published output."""
+"""Tests of cohort.stats.regression against independent computations and published output."""
 
 from __future__ import annotations
 
@@ -12,9 +12,9 @@ from hypothesis import assume, given, settings
 from hypothesis import strategies as st
 from scipy import stats
 
-from cohort import regression
-from cohort.regression import MethodRegression, deming, passing_bablok
-from cohort.results import NotEstimableWarning
+from cohort.stats import regression
+from cohort.stats.regression import MethodRegression, deming, passing_bablok
+from cohort.stats.results import NotEstimableWarning
 
 # ------------------------------------------------------------------ independent references
 
@@ -357,10 +357,10 @@ def test_bootstrap_without_seed_records_the_seed_it_used():
 
 
 def test_pb_bootstrap_budget_reduces_b_and_says_so(monkeypatch):
-    import cohort.regression
+    import cohort.stats.regression
 
     # the refit budget applies above the weighted-slope limit; lower the limit to reach it
-    monkeypatch.setattr(cohort.regression, "PB_WEIGHTED_MAX_N", 0)
+    monkeypatch.setattr(cohort.stats.regression, "PB_WEIGHTED_MAX_N", 0)
     x, y, subject = cohort_data()  # 204 pairs
     budget = 204 * 250
     fit = passing_bablok(x, y, subject=subject, n_boot=1000, seed=1, max_pair_resamples=budget)
@@ -567,7 +567,7 @@ def test_inversion_count_and_pairs_equal_the_definition(n):
 def test_weighted_slope_bootstrap_equals_refitting_each_resample():
     # the weighted-slope cluster bootstrap must give the Passing-Bablok fit (Passing & Bablok
     # 1983) of each expanded resample, ties and not-estimable resamples included
-    from cohort.regression import _pb_point, _pb_weighted_draws, _ragged_ranges
+    from cohort.stats.regression import _pb_point, _pb_weighted_draws, _ragged_ranges
 
     rng = np.random.default_rng(3)
     for trial in range(60):
@@ -592,7 +592,7 @@ def test_weighted_slope_bootstrap_blocks_and_window_give_the_same_numbers(monkey
     # the window of slopes placed from the first resamples, its blocks, and the resamples
     # located through coarse blocks when they fall outside it add the same whole numbers, so
     # the draws must be identical to locating every resample through coarse blocks
-    from cohort.regression import _pb_weighted_draws
+    from cohort.stats.regression import _pb_weighted_draws
 
     rng = np.random.default_rng(11)
     n_subj = 150  # 600 points: 179,700 slopes
@@ -627,7 +627,7 @@ def test_weighted_slope_bootstrap_blocks_and_window_give_the_same_numbers(monkey
 
 
 def test_passing_bablok_cluster_interval_above_the_weighted_limit_says_why():
-    from cohort.regression import PB_WEIGHTED_MAX_N
+    from cohort.stats.regression import PB_WEIGHTED_MAX_N
 
     rng = np.random.default_rng(0)
     n = PB_WEIGHTED_MAX_N + 10

@@ -14,13 +14,13 @@ from pathlib import Path
 import pandas as pd
 import pytest
 
+from cohort.analysis.pipeline import options_from_study
 from cohort.cli import main
 from cohort.demo import write_demo
-from cohort.destination import OutputExistsError
+from cohort.io.study import load_study
 from cohort.parallel import resolve_workers
-from cohort.pipeline import options_from_study
-from cohort.runner import run
-from cohort.study import load_study
+from cohort.report.destination import OutputExistsError
+from cohort.report.runner import run
 
 B = 60  # resamples: enough to exercise the bootstrap, small enough for a fast suite
 
@@ -137,7 +137,7 @@ def test_refuses_a_folder_holding_other_files_even_with_force(demo_run, tmp_path
 
 def test_an_interrupted_run_leaves_no_half_report(demo_run, tmp_path, monkeypatch):
     study_file, _ = demo_run
-    import cohort.runner as runner
+    import cohort.report.runner as runner
 
     def boom(*args, **kwargs):
         raise KeyboardInterrupt

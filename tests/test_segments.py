@@ -7,7 +7,7 @@ its Figures 1-2 and text.
 
 import pytest
 
-from cohort.segments import AHA16, AHA17, RINGS, SEGMENTS, segment_model
+from cohort.domain.segments import AHA16, AHA17, RINGS, SEGMENTS, segment_model
 
 # Cerqueira et al. 2002, the 17 names in the statement's order.
 PUBLISHED_NAMES = {

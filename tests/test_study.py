@@ -13,8 +13,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from cohort.problems import StudyError
-from cohort.study import COMPACT_COLUMNS, PAIRED_COLUMNS, load_study
+from cohort.domain.problems import StudyError
+from cohort.io.study import COMPACT_COLUMNS, PAIRED_COLUMNS, load_study
 
 from .conftest import HEADER, problems_of, small_subjects, small_values, write_csv
 from .conftest import coded as only
@@ -398,7 +398,7 @@ def test_error_message_names_file_row_and_column(make_study):
 
 
 def test_unknown_study_file_key_is_refused(tmp_path):
-    from cohort.settings import read_study_file
+    from cohort.io.settings import read_study_file
 
     path = tmp_path / "study.toml"
     path.write_text('[study]\nvalues="v.csv"\nsubjects="s.csv"\nreference="r"\nrefrence="x"\n')

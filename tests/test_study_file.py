@@ -22,12 +22,12 @@ from pathlib import Path
 
 import pytest
 
-from cohort import options as opts
 from cohort.cli import main
 from cohort.demo import STUDY_TOML, write_demo
-from cohort.problems import StudyError
-from cohort.settings import CHECK_RULES, Checks, build_settings, read_study_file
-from cohort.study import load_study
+from cohort.domain import options as opts
+from cohort.domain.problems import StudyError
+from cohort.io.settings import CHECK_RULES, Checks, build_settings, read_study_file
+from cohort.io.study import load_study
 
 ROOT = Path(__file__).resolve().parents[1]
 
@@ -395,7 +395,8 @@ def _docstring_example(module, start: str, stop: str) -> str:
 
 
 def test_documented_and_demo_study_files_pass(tmp_path):
-    from cohort import options, settings, thresholds
+    from cohort.domain import options, thresholds
+    from cohort.io import settings
 
     read_study_file(ROOT / "demo_cohort" / "study.toml")
     read_study_file(write(tmp_path, study=STUDY_TOML))
@@ -435,7 +436,7 @@ def test_every_option_has_a_rule():
 
 
 def test_every_offered_correction_is_one_the_estimators_know():
-    from cohort import multiplicity
+    from cohort.stats import multiplicity
 
     for correction in opts.CORRECTIONS:
         multiplicity.check_correction(correction)
@@ -443,9 +444,9 @@ def test_every_offered_correction_is_one_the_estimators_know():
 
 def test_the_input_edge_does_not_import_the_analysis():
     code = (
-        "import sys, cohort.settings; "
-        "print(sorted(m for m in ('cohort.pipeline', 'cohort.agreement_table', "
-        "'cohort.bootstrap') if m in sys.modules))"
+        "import sys, cohort.io.settings; "
+        "print(sorted(m for m in ('cohort.analysis.pipeline', 'cohort.analysis.agreement_table', "
+        "'cohort.stats.bootstrap') if m in sys.modules))"
     )
     result = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True)
     assert result.returncode == 0 and result.stdout.strip() == "[]", result.stderr

@@ -9,16 +9,16 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from cohort.demo import write_demo
-from cohort.study import load_study
-from cohort.swaps import (
+from cohort.analysis.swaps import (
     COUNT_COLUMNS,
     FLAG_COLUMNS,
     exclude_flagged,
     swap_screen,
     swap_screen_with,
 )
-from cohort.thresholds import MAGNITUDE_ONLY_FF_LIMIT, parse_swap_options
+from cohort.demo import write_demo
+from cohort.domain.thresholds import MAGNITUDE_ONLY_FF_LIMIT, parse_swap_options
+from cohort.io.study import load_study
 
 
 def paired_ff(pairs, method="fast", parameter="ff", start=1):

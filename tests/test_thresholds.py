@@ -6,9 +6,8 @@ import math
 
 import pytest
 
-from cohort.problems import StudyError
-from cohort.settings import read_study_file
-from cohort.thresholds import (
+from cohort.domain.problems import StudyError
+from cohort.domain.thresholds import (
     BUILT_IN,
     CAUTION,
     DEFAULT_FINDINGS,
@@ -23,7 +22,8 @@ from cohort.thresholds import (
     parse_swap_options,
     thresholds_table,
 )
-from cohort.units import r2star_to_t2star_ms, t2star_ms_to_r2star
+from cohort.domain.units import r2star_to_t2star_ms, t2star_ms_to_r2star
+from cohort.io.settings import read_study_file
 
 # --- facts of the trade --------------------------------------------------------------------
 

@@ -2,7 +2,7 @@
 
 import numpy as np
 
-from cohort.units import (
+from cohort.domain.units import (
     PROTON_GAMMA_BAR_MHZ_PER_T,
     ppm_to_hz,
     r2star_to_t2star_ms,
