@@ -4,8 +4,9 @@
 agreement table of :mod:`cohort.analysis.agreement_table`, the segment findings of
 :mod:`cohort.analysis.findings`), draws each figure with the plotting functions of
 :mod:`cohort.plots.agreement_plots`, :mod:`cohort.plots.bullseye` and
-:mod:`cohort.plots.group_plots`, saves it with :func:`cohort.plots.style.save_figure` and returns a :class:`FigureRecord` per figure (file
-paths and a caption a reader understands on its own).
+:mod:`cohort.plots.group_plots`, saves it with :func:`cohort.plots.style.save_figure` and
+returns a :class:`FigureRecord` per figure (file paths and a caption a reader understands
+on its own).
 
 No statistic is computed here. Bias, limits, their intervals, Passing-Bablok lines and CCC
 come from the agreement table; only display summaries are formed here (segment medians,
