@@ -284,7 +284,7 @@ def _check(paired, strata, extra_strata, ratio_parameters, error_ratio) -> None:
 
 def _cells(prefix: str, estimate: Estimate, analytic: bool = True) -> dict[str, float]:
     out = {
-        prefix: estimate.value,
+        prefix: estimate.estimate,
         f"{prefix}_ci_low": estimate.ci.low,
         f"{prefix}_ci_high": estimate.ci.high,
     }
@@ -423,7 +423,7 @@ def _row(
             n_boot=n_boot,
             seed=seed,
         )
-        cells.update({key: getattr(lines, key).value for key in _REGRESSION_LIMIT_KEYS})
+        cells.update({key: getattr(lines, key).estimate for key in _REGRESSION_LIMIT_KEYS})
     return cells, remarks
 
 

@@ -129,7 +129,7 @@ class Kappa:
                     "ci_low": self.ci.low,
                     "ci_high": self.ci.high,
                     "ci_method": self.ci.method,
-                    "confidence_level": self.ci.confidence_level,
+                    "confidence_level": self.ci.level,
                     "observed_agreement": self.observed_agreement,
                     "chance_agreement": self.chance_agreement,
                     "n": self.n,

@@ -300,7 +300,7 @@ class EffectSize:
             "effect_ci_low": self.ci.low,
             "effect_ci_high": self.ci.high,
             "effect_ci_method": self.ci.method,
-            "confidence_level": self.ci.confidence_level,
+            "confidence_level": self.ci.level,
             "n_subjects": self.n_subjects,
             "note": "; ".join(n for n in (self.note, self.ci.note) if n),
         }

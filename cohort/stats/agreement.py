@@ -205,9 +205,9 @@ class RegressionLimits:
         return pd.DataFrame(
             {
                 "mean": a,
-                "bias": self.bias_intercept.value + self.bias_slope.value * a,
-                "loa_low": self.loa_low_intercept.value + self.loa_low_slope.value * a,
-                "loa_high": self.loa_high_intercept.value + self.loa_high_slope.value * a,
+                "bias": self.bias_intercept.estimate + self.bias_slope.estimate * a,
+                "loa_low": self.loa_low_intercept.estimate + self.loa_low_slope.estimate * a,
+                "loa_high": self.loa_high_intercept.estimate + self.loa_high_slope.estimate * a,
             }
         )
 

@@ -61,7 +61,7 @@ class Estimate:
     """
 
     name: str
-    value: float
+    estimate: float
     ci: ConfidenceInterval
     analytic_ci: ConfidenceInterval
     n_subjects: int
@@ -75,14 +75,14 @@ class Estimate:
     def row(self) -> dict[str, object]:
         return {
             "quantity": self.name,
-            "estimate": self.value,
+            "estimate": self.estimate,
             "ci_low": self.ci.low,
             "ci_high": self.ci.high,
             "ci_method": self.ci.method,
             "analytic_ci_low": self.analytic_ci.low,
             "analytic_ci_high": self.analytic_ci.high,
             "analytic_ci_method": self.analytic_ci.method,
-            "confidence_level": self.ci.confidence_level,
+            "confidence_level": self.ci.level,
             "n_subjects": self.n_subjects,
             "n_pairs": self.n_pairs,
             "note": "; ".join(

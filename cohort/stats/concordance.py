@@ -98,7 +98,7 @@ class IccForm:
     name: str
     shrout_fleiss: str
     description: str
-    value: float
+    estimate: float
     ci: ConfidenceInterval
     f_value: float
     df1: float
@@ -128,11 +128,11 @@ class IccForms:
                     "form": f.name,
                     "shrout_fleiss": f.shrout_fleiss,
                     "description": f.description,
-                    "icc": f.value,
+                    "icc": f.estimate,
                     "ci_low": f.ci.low,
                     "ci_high": f.ci.high,
                     "ci_method": f.ci.method,
-                    "confidence_level": f.ci.confidence_level,
+                    "confidence_level": f.ci.level,
                     "f_value": f.f_value,
                     "df1": f.df1,
                     "df2": f.df2,

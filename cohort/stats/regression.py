@@ -114,7 +114,7 @@ class MethodRegression:
                 "intercept_ci_low": [self.intercept_ci.low],
                 "intercept_ci_high": [self.intercept_ci.high],
                 "n": [self.n],
-                "confidence_level": [self.slope_ci.confidence_level],
+                "confidence_level": [self.slope_ci.level],
                 "ci_method": [ci_method],
                 "note": [note],
             }

@@ -33,7 +33,7 @@ class ConfidenceInterval:
 
     low: float
     high: float
-    confidence_level: float = 0.95
+    level: float = 0.95
     method: str = ""
     note: str = ""
 
@@ -43,9 +43,9 @@ class ConfidenceInterval:
 
     @classmethod
     def not_estimable(
-        cls, reason: str, confidence_level: float = 0.95, method: str = ""
+        cls, reason: str, level: float = 0.95, method: str = ""
     ) -> ConfidenceInterval:
-        return cls(math.nan, math.nan, confidence_level, method, f"not estimable: {reason}")
+        return cls(math.nan, math.nan, level, method, f"not estimable: {reason}")
 
 
 @dataclass(frozen=True)

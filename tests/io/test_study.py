@@ -16,8 +16,8 @@ import pytest
 from cohort.domain.problems import StudyError
 from cohort.io.study import COMPACT_COLUMNS, PAIRED_COLUMNS, load_study
 
-from .conftest import HEADER, problems_of, small_subjects, small_values, write_csv
-from .conftest import coded as only
+from ..conftest import HEADER, problems_of, small_subjects, small_values, write_csv
+from ..conftest import coded as only
 
 # --- valid input ---------------------------------------------------------------------------
 

@@ -50,14 +50,14 @@ def test_bias_and_limits_on_giavarina_example():
     data = pg.read_dataset("blandaltman")
     with pytest.warns(NotEstimableWarning):  # within-subject SD: one pair per subject
         result = limits_of_agreement(data["B"], data["A"], n_boot=200)
-    assert result.bias.value == pytest.approx(-27.1667, abs=1e-4)
-    assert result.sd.value == pytest.approx(34.8059, abs=1e-4)
-    assert result.lower.value == pytest.approx(-95.3863, abs=1e-4)
-    assert result.upper.value == pytest.approx(41.0530, abs=1e-4)
+    assert result.bias.estimate == pytest.approx(-27.1667, abs=1e-4)
+    assert result.sd.estimate == pytest.approx(34.8059, abs=1e-4)
+    assert result.lower.estimate == pytest.approx(-95.3863, abs=1e-4)
+    assert result.upper.estimate == pytest.approx(41.0530, abs=1e-4)
     assert "one pair per subject" in result.note
     classic = subject_mean_limits(data["B"], data["A"], n_boot=200)
-    assert classic.lower.value == pytest.approx(-95.3863, abs=1e-4)
-    assert classic.upper.value == pytest.approx(41.0530, abs=1e-4)
+    assert classic.lower.estimate == pytest.approx(-95.3863, abs=1e-4)
+    assert classic.upper.estimate == pytest.approx(41.0530, abs=1e-4)
 
 
 def test_sd_relates_to_statsmodels_mean_diff_plot_ddof0():
@@ -71,8 +71,9 @@ def test_sd_relates_to_statsmodels_mean_diff_plot_ddof0():
     sm.graphics.mean_diff_plot(data["A"].to_numpy(), data["B"].to_numpy(), ax=ax)
     drawn = sorted(line.get_ydata()[0] for line in ax.lines)
     plt.close("all")
-    sd0 = result.sd.value * math.sqrt((n - 1) / n)
-    expected = [result.bias.value - 1.96 * sd0, result.bias.value, result.bias.value + 1.96 * sd0]
+    sd0 = result.sd.estimate * math.sqrt((n - 1) / n)
+    b = result.bias.estimate
+    expected = [b - 1.96 * sd0, b, b + 1.96 * sd0]
     np.testing.assert_allclose(drawn, expected, rtol=1e-12)
 
 
@@ -90,12 +91,12 @@ def test_ba2007_hand_computation_balanced():
     subject = np.repeat(["S1", "S2", "S3"], 3)
     result = limits_of_agreement(reference, reference + d, subject=subject, n_boot=0)
     within, between = result.components
-    assert result.bias.value == pytest.approx(10 / 3, rel=1e-12)
-    assert within.value == pytest.approx(math.sqrt(10 / 6), rel=1e-12)
-    assert between.value == pytest.approx(math.sqrt(16 / 9), rel=1e-12)
-    assert result.sd.value == pytest.approx(math.sqrt(31 / 9), rel=1e-12)
-    assert result.lower.value == pytest.approx(10 / 3 - 1.96 * math.sqrt(31 / 9), rel=1e-12)
-    assert result.upper.value == pytest.approx(10 / 3 + 1.96 * math.sqrt(31 / 9), rel=1e-12)
+    assert result.bias.estimate == pytest.approx(10 / 3, rel=1e-12)
+    assert within.estimate == pytest.approx(math.sqrt(10 / 6), rel=1e-12)
+    assert between.estimate == pytest.approx(math.sqrt(16 / 9), rel=1e-12)
+    assert result.sd.estimate == pytest.approx(math.sqrt(31 / 9), rel=1e-12)
+    assert result.lower.estimate == pytest.approx(10 / 3 - 1.96 * math.sqrt(31 / 9), rel=1e-12)
+    assert result.upper.estimate == pytest.approx(10 / 3 + 1.96 * math.sqrt(31 / 9), rel=1e-12)
 
 
 @pytest.mark.parametrize(
@@ -110,8 +111,8 @@ def test_ba2007_components_agree_with_statsmodels_mixedlm(balanced, n_subjects, 
     d = test - reference
     fit = smf.mixedlm("d ~ 1", pd.DataFrame({"d": d, "s": subject}), groups="s").fit(reml=True)
     within, between = limits_of_agreement(reference, test, subject=subject, n_boot=0).components
-    assert within.value**2 == pytest.approx(fit.scale, rel=1e-3 if balanced else 0.01)
-    assert between.value**2 == pytest.approx(float(fit.cov_re.iloc[0, 0]), rel=rel_between)
+    assert within.estimate**2 == pytest.approx(fit.scale, rel=1e-3 if balanced else 0.01)
+    assert between.estimate**2 == pytest.approx(float(fit.cov_re.iloc[0, 0]), rel=rel_between)
 
 
 def zou_nested_intervals(d, subject, confidence_level=0.95):
@@ -196,7 +197,7 @@ def test_exact_limit_interval_has_nominal_coverage():
     constants = []
     for i in range(2):
         limits = subject_mean_limits(np.zeros(n), samples[i], n_boot=0)
-        assert limits.upper.value == pytest.approx(mean[i] + 1.96 * sd[i])
+        assert limits.upper.estimate == pytest.approx(mean[i] + 1.96 * sd[i])
         ci = limits.upper.analytic_ci
         constants.append(
             ((ci.low - mean[i]) * math.sqrt(n) / sd[i], (ci.high - mean[i]) * math.sqrt(n) / sd[i])
@@ -224,8 +225,8 @@ def test_subject_mean_limits_use_one_mean_per_subject():
     reference, test, subject = clustered(15, seed=3)
     means = pd.Series(test - reference).groupby(subject).mean()
     result = subject_mean_limits(reference, test, subject=subject, n_boot=0)
-    assert result.bias.value == pytest.approx(means.mean())
-    assert result.sd.value == pytest.approx(means.std(ddof=1))
+    assert result.bias.estimate == pytest.approx(means.mean())
+    assert result.sd.estimate == pytest.approx(means.std(ddof=1))
 
 
 # --- proportional bias and regression-based limits ----------------------------------------------
@@ -242,14 +243,14 @@ def test_proportional_bias_matches_statsmodels_cluster_robust_ols():
         cov_type="cluster", cov_kwds={"groups": codes}, use_t=True
     )
     result = proportional_bias(reference, test, subject=subject, n_boot=200)
-    assert result.slope.value == pytest.approx(fit.params[1], rel=1e-10)
-    assert result.intercept.value == pytest.approx(fit.params[0], rel=1e-10)
+    assert result.slope.estimate == pytest.approx(fit.params[1], rel=1e-10)
+    assert result.intercept.estimate == pytest.approx(fit.params[0], rel=1e-10)
     low, high = fit.conf_int()[1]
     assert result.slope.analytic_ci.low == pytest.approx(low, rel=1e-8)
     assert result.slope.analytic_ci.high == pytest.approx(high, rel=1e-8)
     low, high = fit.conf_int()[0]
     assert result.intercept.analytic_ci.low == pytest.approx(low, rel=1e-8)
-    assert result.slope.ci.low < result.slope.value < result.slope.ci.high
+    assert result.slope.ci.low < result.slope.estimate < result.slope.ci.high
 
 
 def test_regression_based_limits_match_least_squares_of_bland_altman_1999():
@@ -262,10 +263,10 @@ def test_regression_based_limits_match_least_squares_of_bland_altman_1999():
     c1, c0 = np.polyfit(a, np.abs(d - b0 - b1 * a), 1)
     k = 1.96 * math.sqrt(math.pi / 2)
     lines = regression_based_limits(reference, test, subject=subject, n_boot=100)
-    assert lines.bias_slope.value == pytest.approx(b1, rel=1e-9)
-    assert lines.abs_residual_slope.value == pytest.approx(c1, rel=1e-9)
-    assert lines.loa_high_intercept.value == pytest.approx(b0 + k * c0, rel=1e-9)
-    assert lines.loa_low_slope.value == pytest.approx(b1 - k * c1, rel=1e-9)
+    assert lines.bias_slope.estimate == pytest.approx(b1, rel=1e-9)
+    assert lines.abs_residual_slope.estimate == pytest.approx(c1, rel=1e-9)
+    assert lines.loa_high_intercept.estimate == pytest.approx(b0 + k * c0, rel=1e-9)
+    assert lines.loa_low_slope.estimate == pytest.approx(b1 - k * c1, rel=1e-9)
     at = lines.at([30.0])
     assert at["loa_high"].iloc[0] == pytest.approx(b0 + b1 * 30 + k * (c0 + c1 * 30), rel=1e-9)
     assert lines.bias_slope.ci.low < b1 < lines.bias_slope.ci.high
@@ -285,9 +286,9 @@ def test_ratio_scale_back_transforms_the_log_ratio():
     on_log = limits_of_agreement(np.zeros(log_ratio.size), log_ratio, subject=subject, seed=4)
     ratio = limits_of_agreement(reference, test, subject=subject, scale="ratio", seed=4)
     assert ratio.bias.name == "ratio_bias"
-    assert ratio.bias.value == pytest.approx(math.exp(on_log.bias.value), rel=1e-10)
-    assert ratio.upper.value == pytest.approx(math.exp(on_log.upper.value), rel=1e-10)
-    assert ratio.sd.value == pytest.approx(on_log.sd.value, rel=1e-10)
+    assert ratio.bias.estimate == pytest.approx(math.exp(on_log.bias.estimate), rel=1e-10)
+    assert ratio.upper.estimate == pytest.approx(math.exp(on_log.upper.estimate), rel=1e-10)
+    assert ratio.sd.estimate == pytest.approx(on_log.sd.estimate, rel=1e-10)
     assert ratio.upper.ci.high == pytest.approx(math.exp(on_log.upper.ci.high), rel=1e-10)
     assert ratio.lower.analytic_ci.low == pytest.approx(
         math.exp(on_log.lower.analytic_ci.low), rel=1e-10
@@ -299,7 +300,7 @@ def test_ratio_scale_not_estimable_with_values_at_or_below_zero():
     reference[:3] = [0.0, -1.0, -2.0]
     with pytest.warns(NotEstimableWarning, match="3 of .* pairs have a value <= 0"):
         result = limits_of_agreement(reference, test, subject=subject, scale="ratio", n_boot=50)
-    assert math.isnan(result.bias.value) and math.isnan(result.upper.ci.low)
+    assert math.isnan(result.bias.estimate) and math.isnan(result.upper.ci.low)
     assert "not estimable: ratio scale: 3 of" in result.note
 
 
@@ -313,7 +314,7 @@ def test_ratio_limits_invariant_to_a_common_unit(factor, seed):
         factor * reference, factor * test, subject=subject, scale="ratio", n_boot=30
     )
     for a, b in ((base.bias, scaled.bias), (base.lower, scaled.lower), (base.upper, scaled.upper)):
-        assert b.value == pytest.approx(a.value, rel=1e-9)
+        assert b.estimate == pytest.approx(a.estimate, rel=1e-9)
         assert b.ci.low == pytest.approx(a.ci.low, rel=1e-9)
 
 
@@ -326,8 +327,8 @@ def test_bias_flips_sign_when_methods_are_swapped(seed):
     reference, test, subject = clustered(5, seed=seed, m_max=6)
     forward = limits_of_agreement(reference, test, subject=subject, n_boot=40)
     backward = limits_of_agreement(test, reference, subject=subject, n_boot=40)
-    assert backward.bias.value == pytest.approx(-forward.bias.value, rel=1e-9, abs=1e-12)
-    assert backward.upper.value == pytest.approx(-forward.lower.value, rel=1e-9, abs=1e-12)
+    assert backward.bias.estimate == pytest.approx(-forward.bias.estimate, rel=1e-9, abs=1e-12)
+    assert backward.upper.estimate == pytest.approx(-forward.lower.estimate, rel=1e-9, abs=1e-12)
     assert backward.bias.ci.low == pytest.approx(-forward.bias.ci.high, rel=1e-9, abs=1e-12)
 
 
@@ -338,8 +339,8 @@ def test_constant_shift_moves_bias_by_the_shift_and_keeps_the_sd(shift, seed):
     assume(np.ptp(test - reference) > 1e-6)
     base = limits_of_agreement(reference, test, subject=subject, n_boot=0)
     moved = limits_of_agreement(reference, test + shift, subject=subject, n_boot=0)
-    assert moved.bias.value == pytest.approx(base.bias.value + shift, rel=1e-9, abs=1e-9)
-    assert moved.sd.value == pytest.approx(base.sd.value, rel=1e-7)
+    assert moved.bias.estimate == pytest.approx(base.bias.estimate + shift, rel=1e-9, abs=1e-9)
+    assert moved.sd.estimate == pytest.approx(base.sd.estimate, rel=1e-7)
 
 
 # --- not estimable and errors -------------------------------------------------------------------
@@ -350,12 +351,12 @@ def test_one_subject_is_not_estimable_with_a_reason():
     subject = np.full(reference.size, "only")
     with pytest.warns(NotEstimableWarning, match="fewer than 2 subjects"):
         result = limits_of_agreement(reference, test, subject=subject, n_boot=100)
-    assert math.isnan(result.bias.value) and math.isnan(result.upper.value)
+    assert math.isnan(result.bias.estimate) and math.isnan(result.upper.estimate)
     assert result.bias.note == "not estimable: fewer than 2 subjects (n=1)"
     frame = result.to_frame()
     assert frame["note"].str.contains("not estimable: fewer than 2 subjects").all()
     with pytest.warns(NotEstimableWarning):
-        assert math.isnan(proportional_bias(reference, test, subject=subject).slope.value)
+        assert math.isnan(proportional_bias(reference, test, subject=subject).slope.estimate)
 
 
 def test_no_bootstrap_leaves_analytic_intervals():

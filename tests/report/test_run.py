@@ -240,7 +240,7 @@ def test_report_renders_in_headless_chromium(demo_run, tmp_path):
 
 def test_every_output_column_is_documented_in_the_readme(demo_run):
     _, summary = demo_run
-    readme = (Path(__file__).resolve().parents[1] / "README.md").read_text(encoding="utf-8")
+    readme = (Path(__file__).resolve().parents[2] / "README.md").read_text(encoding="utf-8")
     undocumented = []
     for path in sorted((summary.out / "tables").glob("*.csv")):
         if f"`{path.stem}`" not in readme:

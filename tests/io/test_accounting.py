@@ -20,7 +20,7 @@ from cohort.cli import main
 from cohort.io.settings import Checks
 from cohort.io.study import load_study
 
-from .conftest import HEADER, coded, problems_of, small_subjects, small_values, write_csv
+from ..conftest import HEADER, coded, problems_of, small_subjects, small_values, write_csv
 
 GROUPS = "control,acute,chronic"
 

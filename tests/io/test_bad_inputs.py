@@ -19,7 +19,7 @@ from cohort.domain.problems import StudyError
 from cohort.io.settings import build_settings
 from cohort.io.study import load_study
 
-from .conftest import HEADER, small_subjects, small_values, write_csv
+from ..conftest import HEADER, small_subjects, small_values, write_csv
 
 SUBJECT_HEADER = ["subject", "group", "field_strength", "age"]
 

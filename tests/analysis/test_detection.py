@@ -62,7 +62,7 @@ def test_wilson_matches_statsmodels(x, n, level):
     low, high = proportion_confint(x, n, alpha=1 - level, method="wilson")
     ci = wilson_interval(x, n, level)
     assert (ci.low, ci.high) == pytest.approx((low, high), abs=1e-12)
-    assert ci.confidence_level == level
+    assert ci.level == level
 
 
 def test_wilson_input_checks_and_empty():

@@ -187,7 +187,7 @@ def test_rows_equal_the_statistics_own_functions(
         ratio = limits_of_agreement(x, y, scale="ratio", **options)
         expected.update({"ratio_bias": ratio.bias, "ratio_loa_high": ratio.upper})
     for name, estimate in expected.items():
-        assert row[name] == pytest.approx(estimate.value, rel=1e-12), name
+        assert row[name] == pytest.approx(estimate.estimate, rel=1e-12), name
         assert row[f"{name}_ci_low"] == pytest.approx(estimate.ci.low, rel=1e-12), name
         assert row[f"{name}_ci_high"] == pytest.approx(estimate.ci.high, rel=1e-12), name
         assert row[f"{name}_analytic_ci_low"] == pytest.approx(estimate.analytic_ci.low, rel=1e-12)
@@ -318,7 +318,7 @@ def test_regression_limits_on_request(paired):
         rows["reference_value"], rows["test_value"], subject=rows["subject"]
     )
     assert row["bias_slope"] == pytest.approx(row["prop_slope"], rel=1e-10)
-    assert row["loa_high_intercept"] == pytest.approx(lines.loa_high_intercept.value, rel=1e-10)
+    assert row["loa_high_intercept"] == pytest.approx(lines.loa_high_intercept.estimate, rel=1e-10)
     assert "regression-based limits" not in row["note"]
 
 

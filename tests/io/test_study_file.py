@@ -29,7 +29,7 @@ from cohort.domain.problems import StudyError
 from cohort.io.settings import CHECK_RULES, Checks, build_settings, read_study_file
 from cohort.io.study import load_study
 
-ROOT = Path(__file__).resolve().parents[1]
+ROOT = Path(__file__).resolve().parents[2]
 
 STUDY = """\
 [study]
