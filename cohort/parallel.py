@@ -51,14 +51,34 @@ def can_fork() -> bool:
     return sys.platform.startswith("linux") and "fork" in multiprocessing.get_all_start_methods()
 
 
-def _worker_start() -> None:
+def _worker_start(parent: int) -> None:
     """In each worker: the parent alone answers Ctrl-C (SIGINT goes to the whole foreground
-    process group) and ends the workers; SIGTERM ends a worker at once; one BLAS thread."""
+    process group) and ends the workers; SIGTERM ends a worker at once; one BLAS thread.
+
+    The worker also ends when its parent dies, however it dies (Linux ``PR_SET_PDEATHSIG``),
+    and at once if the parent is already gone: a signal that interrupts the parent while
+    the pool forks can leave a worker the pool has not recorded yet, which
+    :func:`_end_workers` cannot see.
+    """
     signal.signal(signal.SIGINT, signal.SIG_IGN)
     signal.signal(signal.SIGTERM, signal.SIG_DFL)
     if hasattr(signal, "SIGHUP"):
         signal.signal(signal.SIGHUP, signal.SIG_DFL)
+    _end_with_parent(parent)
     _single_threaded()
+
+
+def _end_with_parent(parent: int) -> None:
+    """Ask the kernel for SIGTERM when the parent dies; exit if it already has."""
+    try:
+        import ctypes
+
+        libc = ctypes.CDLL(None, use_errno=True)
+        libc.prctl(1, int(signal.SIGTERM), 0, 0, 0)  # 1 = PR_SET_PDEATHSIG (linux/prctl.h)
+    except (OSError, AttributeError):  # pragma: no cover - not Linux
+        pass
+    if os.getppid() != parent:
+        os._exit(1)
 
 
 def _single_threaded() -> None:
@@ -85,7 +105,9 @@ def ordered_map(
         done = [job(item) for item in items]
     else:
         context = multiprocessing.get_context("fork")
-        pool = ProcessPoolExecutor(n, mp_context=context, initializer=_worker_start)
+        pool = ProcessPoolExecutor(
+            n, mp_context=context, initializer=_worker_start, initargs=(os.getpid(),)
+        )
         try:
             # futures are never cancelled: Python 3.11's pool then fails on a cancelled
             # future when its workers are ended (it marks each pending one broken instead)
@@ -110,7 +132,9 @@ def _end_workers(pool: ProcessPoolExecutor) -> None:
     if terminate is not None:
         terminate()
         return
-    processes = list((getattr(pool, "_processes", None) or {}).values())
+    recorded = list((getattr(pool, "_processes", None) or {}).values())
+    # with the children forked but not yet recorded by the pool when a signal came
+    processes = list({id(p): p for p in [*recorded, *multiprocessing.active_children()]}.values())
     for process in processes:
         if process.is_alive():
             process.terminate()

@@ -72,3 +72,49 @@ def _times(factor: int, index: int) -> int:
 @pytest.mark.parametrize("workers", [1, 2])
 def test_map_shared_gives_each_call_the_shared_input_and_nests(workers):
     assert map_shared(_outer, [10, 20], 2, workers=workers) == [[0, 10, 20, 10], [0, 20, 40, 20]]
+
+
+_KILLED_PARENT = """
+import os, sys, time
+from cohort.parallel import ordered_map
+
+def nap(x):
+    print(os.getpid(), flush=True)
+    time.sleep(60)
+    return x
+
+ordered_map(nap, range(2), workers=2)
+"""
+
+
+@pytest.mark.skipif(
+    not can_fork() or not os.path.exists("/proc/self"), reason="forked workers, Linux /proc"
+)
+def test_no_worker_outlives_a_parent_killed_without_warning(tmp_path):
+    """A parent that dies without running any cleanup (SIGKILL) takes its workers with it:
+    they would otherwise wait for work forever, holding the run's pipes and memory."""
+    import signal
+    import subprocess
+    import sys
+    import time
+
+    script = tmp_path / "parent.py"
+    script.write_text(_KILLED_PARENT)
+    parent = subprocess.Popen([sys.executable, str(script)], stdout=subprocess.PIPE, text=True)
+    workers = {int(parent.stdout.readline()) for _ in range(2)}  # both workers are napping
+    assert all(os.path.exists(f"/proc/{pid}") for pid in workers)
+    parent.send_signal(signal.SIGKILL)
+    parent.wait(timeout=30)
+    deadline = time.monotonic() + 20
+    while time.monotonic() < deadline and any(_alive(pid) for pid in workers):
+        time.sleep(0.05)
+    assert not [pid for pid in workers if _alive(pid)], "a worker outlived its parent"
+
+
+def _alive(pid: int) -> bool:
+    """Whether ``pid`` runs (a zombie, ended but not yet reaped by init, counts as ended)."""
+    try:
+        with open(f"/proc/{pid}/stat", encoding="ascii") as handle:
+            return handle.read().rsplit(")", 1)[1].split()[0] != "Z"
+    except OSError:
+        return False
