@@ -42,8 +42,8 @@ from cohort.analysis import agreement_table as table_module
 from cohort.analysis.agreement_table import agreement_table
 from cohort.domain.segments import SEGMENTS
 from cohort.stats.regression import MethodRegression
-from cohort.stats.results import ConfidenceInterval
-from tests.test_bootstrap import fast_bootstrap, invented_cohort, naive_bootstrap
+from cohort.stats.results import ConfidenceInterval, Estimate
+from tests.stats.test_bootstrap import fast_bootstrap, invented_cohort, naive_bootstrap
 
 GROUPS = ("control", "acute", "chronic")
 PARAMETERS = {"ff": (2.0, 1.0, 1.0), "r2star": (30.0, 5.0, 4.0), "field": (0.0, 10.0, 5.0)}
@@ -108,7 +108,11 @@ def peak_mb(function) -> float:
 def _stand_in(reference, test, **_options) -> MethodRegression:
     """Returns at once: isolates the agreement engine from the regression module's cost."""
     missing = ConfidenceInterval.not_estimable("benchmark stand-in")
-    return MethodRegression("stand-in", math.nan, math.nan, missing, missing, len(reference))
+    n = len(reference)
+    slope, intercept = (
+        Estimate(q, math.nan, missing, missing, n, n) for q in ("slope", "intercept")
+    )
+    return MethodRegression("stand-in", slope, intercept, n, n)
 
 
 @contextlib.contextmanager

@@ -17,7 +17,7 @@ import time
 
 import numpy as np
 
-from cohort.stats import regression
+from cohort.stats import _inversions, _pb_bootstrap, _pb_fit, regression
 
 
 def cohort(n_subjects: int, decimals: int | None, seed: int = 1):
@@ -53,18 +53,18 @@ def main() -> None:
             x, y, _ = cohort(n_subjects, decimals)
             n = x.size
             repeats = 5 if n <= 20_000 else 3
-            t_fast, fast = timed(lambda x=x, y=y: regression._pb_fit(x, y, 0.95, "fast"), repeats)
+            t_fast, fast = timed(lambda x=x, y=y: _pb_fit.pb_fit(x, y, 0.95, "fast"), repeats)
             direct = ""
             ratio = ""
             if n <= 5_100:
-                t_dir, slow = timed(lambda x=x, y=y: regression._pb_fit(x, y, 0.95, "direct"), 3)
+                t_dir, slow = timed(lambda x=x, y=y: _pb_fit.pb_fit(x, y, 0.95, "direct"), 3)
                 assert slow.slope == fast.slope and slow.slope_ci == fast.slope_ci
                 direct, ratio = f"{t_dir:8.3f}", f"{t_dir / t_fast:6.1f}"
             print(f"{n:>10} {label:>8} {repeats:>4} {t_fast:10.3f} {direct:>8} {ratio:>6}")
     # the direct method at 300 subjects (5,100 pairs, 13 million slopes) for the O(n^2) trend
     x, y, _ = cohort(300, 1)
-    t_dir, _ = timed(lambda: regression._pb_fit(x, y, 0.95, "direct"), 3)
-    t_fast, _ = timed(lambda: regression._pb_fit(x, y, 0.95, "fast"), 3)
+    t_dir, _ = timed(lambda: _pb_fit.pb_fit(x, y, 0.95, "direct"), 3)
+    t_fast, _ = timed(lambda: _pb_fit.pb_fit(x, y, 0.95, "fast"), 3)
     print(f"{x.size:>10} {'0.1':>8} {3:>4} {t_fast:10.3f} {t_dir:8.3f} {t_dir / t_fast:6.1f}")
 
     print("\nOne subject-cluster bootstrap resample, 10,000 subjects x 17 = 170,000 pairs")
@@ -77,11 +77,11 @@ def main() -> None:
         resamples = []
         for _ in range(5):
             draw = rng.integers(0, size.size, size.size)
-            resamples.append(order[regression._ragged_ranges(start[draw], size[draw])])
+            resamples.append(order[_inversions.ragged_ranges(start[draw], size[draw])])
         times = []
         for idx in resamples:
             t0 = time.perf_counter()
-            regression._pb_point(x[idx], y[idx])
+            _pb_fit.pb_point(x[idx], y[idx])
             times.append(time.perf_counter() - t0)
         per = statistics.median(times)
         budget = regression.PB_BOOTSTRAP_PAIR_BUDGET
@@ -98,7 +98,7 @@ def main() -> None:
         print(f"  {label:>5} data: Deming cluster bootstrap, B=2000: {t_dem:.2f} s in total")
     print(
         "\nPassing-Bablok weighted-slope cluster bootstrap, B=2000 "
-        "(regression._pb_weighted_draws; median of 3, seconds)"
+        "(_pb_bootstrap.pb_weighted_draws; median of 3, seconds)"
     )
     print(f"{'subjects':>9} {'per subject':>11} {'pairs':>6} {'slopes':>10} {'seconds':>8}")
     for n_subjects, per_subject in ((48, 17), (100, 17), (235, 17), (1_000, 1), (4_000, 1)):
@@ -111,7 +111,7 @@ def main() -> None:
              for _ in range(2000)]
         )  # fmt: skip
         t_w, _ = timed(
-            lambda x=x, y=y, c=codes, k=counts: regression._pb_weighted_draws(x, y, c, k), 3
+            lambda x=x, y=y, c=codes, k=counts: _pb_bootstrap.pb_weighted_draws(x, y, c, k), 3
         )
         n_slopes = codes.size * (codes.size - 1) // 2
         print(f"{n_subjects:>9} {per_subject:>11} {codes.size:>6} {n_slopes:>10,} {t_w:8.2f}")

@@ -14,18 +14,23 @@ from __future__ import annotations
 import functools
 import math
 import warnings
-from collections.abc import Iterable, Mapping, Sequence
-from types import MappingProxyType
+from collections.abc import Callable, Iterable, Mapping, Sequence
 
 import numpy as np
 import pandas as pd
 
+from cohort.analysis.agreement_columns import (
+    AGREEMENT_COLUMNS,
+    COLUMN_DESCRIPTIONS,
+    regression_columns,
+)
 from cohort.domain.options import PB_MAX_PAIRS, STRATA
 from cohort.domain.segments import RINGS, TERRITORIES
 from cohort.domain.units import PARAMETERS
 from cohort.parallel import ordered_map
 from cohort.stats.agreement import (
     PROPORTIONAL,
+    REGRESSION_LIMIT_NAMES,
     LimitsOfAgreement,
     ba2007_analysis,
     regression_based_limits,
@@ -34,7 +39,7 @@ from cohort.stats.agreement import (
 from cohort.stats.bootstrap import (
     DEFAULT_N_BOOT,
     DEFAULT_SEED,
-    Estimate,
+    EstimationContext,
     PairedValues,
     ResampleCounts,
     bootstrap_method,
@@ -44,8 +49,10 @@ from cohort.stats.bootstrap import (
 )
 from cohort.stats.concordance import CCC_ANALYSIS, ICC_ANALYSIS
 from cohort.stats.correlation import PEARSON_ANALYSIS, RM_CORR_ANALYSIS, SPEARMAN_ANALYSIS
-from cohort.stats.regression import deming, passing_bablok
-from cohort.stats.results import NotEstimableWarning
+from cohort.stats.regression import MethodRegression, deming, passing_bablok
+from cohort.stats.results import Estimate, NotEstimableWarning, SingleQuantity
+
+__all__ = ["AGREEMENT_COLUMNS", "COLUMN_DESCRIPTIONS", "PB_TABLE_MAX_PAIRS", "agreement_table"]
 
 PB_TABLE_MAX_PAIRS = PB_MAX_PAIRS
 """Rows of more pairs get no Passing-Bablok fit unless ``pb_max_pairs`` is raised: its exact
@@ -54,169 +61,9 @@ slope selection took 12 to 27 s for one row of 1.7 million pairs on a 2-core mac
 narrow to the point of misleading; Deming and the limits of agreement keep their cluster
 bootstrap at any size. The number lives in :mod:`cohort.domain.options`."""
 
-_BOOT = "subject cluster bootstrap percentile interval"
-
-
-def _described(name: str, what: str, analytic: str | None = None) -> dict[str, str]:
-    """Descriptions of a statistic, its bootstrap CI and (if given) its analytic CI columns."""
-    out = {
-        name: what,
-        f"{name}_ci_low": f"lower limit of the {_BOOT} of {name}",
-        f"{name}_ci_high": f"upper limit of the {_BOOT} of {name}",
-    }
-    if analytic is not None:
-        out[f"{name}_analytic_ci_low"] = f"lower limit of the analytic CI of {name}: {analytic}"
-        out[f"{name}_analytic_ci_high"] = f"upper limit of the analytic CI of {name}: {analytic}"
-    return out
-
-
-def _regression_columns(prefix: str, procedure: str) -> dict[str, str]:
-    out = {}
-    for q in ("slope", "intercept"):
-        out[f"{prefix}_{q}"] = f"{procedure} {q} (y = test, x = reference)"
-        out[f"{prefix}_{q}_ci_low"] = f"lower limit of the CI of the {procedure} {q}"
-        out[f"{prefix}_{q}_ci_high"] = f"upper limit of the CI of the {procedure} {q}"
-    out[f"{prefix}_ci_method"] = (
-        f"how the {procedure} CIs were obtained (subject cluster bootstrap when n_boot > 0)"
-    )
-    return out
-
-
-_MOVER = "MOVER of Zou (2013) on the ANOVA variance components"
-_EXACT = "exact, non-central t (Carkeet 2015), on the subject means"
-_RATIO = "natural log of test/reference; NaN with a note for parameters not in ratio_parameters"
-
-COLUMN_DESCRIPTIONS: MappingProxyType[str, str] = MappingProxyType(
-    {
-        "parameter": "parameter code: ff (%), r2star (1/s), field (Hz)",
-        "method": "test method",
-        "reference": "reference method",
-        "stratum": "all, group=<name>, ring=<name>, territory=<name> or an extra stratum's name",
-        "n_subjects": "subjects with at least one pair in the stratum",
-        "n_pairs": "(subject, segment) pairs in the stratum",
-        **_described(
-            "bias",
-            "mean difference test - reference over all pairs (Bland & Altman 2007)",
-            "t, k-1 df, on the ANOVA variance components",
-        ),
-        **_described(
-            "sd",
-            "SD of a single difference, sqrt(s_between^2 + s_within^2) (Bland & Altman 2007)",
-            "square root of the MOVER interval of the total variance (Zou 2013)",
-        ),
-        **_described(
-            "sd_within",
-            "within-subject SD of the differences (one-way ANOVA on subject)",
-            "chi-square, N-k df",
-        ),
-        **_described(
-            "sd_between",
-            "between-subject SD of the differences, (MSB - MSW)/m0 set to 0 when negative",
-        ),
-        **_described("loa_low", "lower limit of agreement, bias - 1.96 sd", _MOVER),
-        **_described("loa_high", "upper limit of agreement, bias + 1.96 sd", _MOVER),
-        **_described(
-            "subject_mean_bias",
-            "mean of the per-subject mean differences (Bland & Altman 1986 on subject means)",
-            "t, k-1 df",
-        ),
-        **_described(
-            "subject_mean_sd", "SD of the per-subject mean differences", "chi-square, k-1 df"
-        ),
-        **_described("subject_mean_loa_low", "subject_mean_bias - 1.96 subject_mean_sd", _EXACT),
-        **_described("subject_mean_loa_high", "subject_mean_bias + 1.96 subject_mean_sd", _EXACT),
-        **_described(
-            "prop_slope",
-            "proportional bias: least-squares slope of the difference on the mean of the "
-            "two methods (Bland & Altman 1999)",
-            "cluster-robust sandwich (CR1), t with k-1 df",
-        ),
-        **_described(
-            "prop_intercept",
-            "intercept of that line (difference at a mean of 0)",
-            "cluster-robust sandwich (CR1), t with k-1 df",
-        ),
-        **_described(
-            "ratio_bias",
-            f"geometric mean ratio test/reference, exp(mean log ratio); {_RATIO}",
-            "back-transformed t interval as for bias",
-        ),
-        **_described(
-            "ratio_loa_low",
-            f"lower ratio limit of agreement (Bland & Altman 2007 on the log ratio); {_RATIO}",
-            f"back-transformed {_MOVER}",
-        ),
-        **_described(
-            "ratio_loa_high",
-            f"upper ratio limit of agreement (Bland & Altman 2007 on the log ratio); {_RATIO}",
-            f"back-transformed {_MOVER}",
-        ),
-        **_described(
-            "sd_log",
-            f"SD of a single log ratio (Bland & Altman 2007); {_RATIO}",
-            "square root of the MOVER interval of the total variance (Zou 2013)",
-        ),
-        **_described(
-            "pearson_r",
-            "Pearson's r over all pairs",
-            "Fisher z, SE 1/sqrt(N-3), pairs treated as independent",
-        ),
-        **_described(
-            "spearman_rho",
-            "Spearman's rho over all pairs; its bootstrap uses the full-sample mid-ranks "
-            "(an approximation)",
-            "Fisher z with the Bonett & Wright (2000) SE, pairs treated as independent",
-        ),
-        **_described(
-            "rm_corr",
-            "repeated-measures correlation (Bakdash & Marusich 2017; Bland & Altman 1995)",
-            "Fisher z, SE 1/sqrt(N-k-2)",
-        ),
-        "rm_corr_df": "degrees of freedom of rm_corr, N - k - 1",
-        "rm_corr_p_value": "two-sided p-value of rm_corr (t test on rm_corr_df df)",
-        **_described(
-            "ccc",
-            "Lin's concordance correlation coefficient (Lin 1989)",
-            "Lin's z transform, pairs treated as independent",
-        ),
-        **_described(
-            "icc",
-            "ICC(A,1): two-way, absolute agreement, single measurement (McGraw & Wong 1996; "
-            "Shrout-Fleiss ICC(2,1)), each (subject, segment) pair a target",
-            "F with Satterthwaite df (McGraw & Wong 1996), targets treated as independent",
-        ),
-        **_regression_columns("pb", "Passing-Bablok"),
-        **_regression_columns("deming", "Deming"),
-        "bias_intercept": "regression-based limits (Bland & Altman 1999): intercept of the "
-        "mean difference line; NaN with a note unless regression_limits=True",
-        "bias_slope": "slope of the mean difference line (equals prop_slope)",
-        "loa_low_intercept": "intercept of the lower regression-based limit",
-        "loa_low_slope": "slope of the lower regression-based limit",
-        "loa_high_intercept": "intercept of the upper regression-based limit",
-        "loa_high_slope": "slope of the upper regression-based limit",
-        "confidence_level": "confidence level of every interval in the row",
-        "ci_method": "how the default (_ci_low/_ci_high) intervals were obtained",
-        "n_boot": "bootstrap resamples B",
-        "seed": "seed of numpy.random.default_rng for the resampling",
-        "note": "why values are NaN (not estimable: ...) and other remarks; empty if none",
-    }
-)
-"""Every column of :func:`agreement_table`, in order, with its meaning."""
-
-AGREEMENT_COLUMNS: tuple[str, ...] = tuple(COLUMN_DESCRIPTIONS)
-"""Column names of :func:`agreement_table`, in order."""
-
 _REQUIRED = ("parameter", "method", "reference", "subject", "reference_value", "test_value")
-_REGRESSION_LIMIT_KEYS = (
-    "bias_intercept",
-    "bias_slope",
-    "loa_low_intercept",
-    "loa_low_slope",
-    "loa_high_intercept",
-    "loa_high_slope",
-)
-
-
+_REGRESSION_LIMIT_KEYS = tuple(c for c in AGREEMENT_COLUMNS if c in REGRESSION_LIMIT_NAMES)
+"""The regression-based limits' coefficients the table shows (not the absolute residuals')."""
 _RATIO_COLUMNS = tuple(c for c in AGREEMENT_COLUMNS if c.startswith(("ratio_", "sd_log")))
 
 
@@ -282,7 +129,9 @@ def _check(paired, strata, extra_strata, ratio_parameters, error_ratio) -> None:
             )
 
 
-def _cells(prefix: str, estimate: Estimate, analytic: bool = True) -> dict[str, float]:
+def _cells(
+    prefix: str, estimate: Estimate | SingleQuantity, analytic: bool = True
+) -> dict[str, float]:
     out = {
         prefix: estimate.estimate,
         f"{prefix}_ci_low": estimate.ci.low,
@@ -295,36 +144,24 @@ def _cells(prefix: str, estimate: Estimate, analytic: bool = True) -> dict[str, 
 
 
 def _loa_cells(result: LimitsOfAgreement, prefix: str = "") -> dict[str, float]:
-    names = {"bias": "bias", "loa_low": "loa_low", "loa_high": "loa_high", "sd": "sd"}
-    if prefix == "ratio_":
-        names["sd"] = "sd_log"
-        names = {k: (v if k == "sd" else f"ratio_{v}") for k, v in names.items()}
-    elif prefix:
-        names = {k: f"{prefix}{v}" for k, v in names.items()}
+    """Bias, limits and SD under their estimates' names (``ratio_bias``, ``sd_log`` ... on
+    the ratio scale) after ``prefix``; the SD components of the difference scale only."""
     out = {}
-    for key, estimate in zip(
-        ("bias", "loa_low", "loa_high", "sd"),
-        (result.bias, result.lower, result.upper, result.sd),
-        strict=True,
-    ):
-        out.update(_cells(names[key], estimate))
-    if not prefix and result.components:
+    for estimate in (result.bias, result.lower, result.upper, result.sd):
+        out.update(_cells(prefix + estimate.name, estimate))
+    if result.scale == "difference" and result.components:
         within, between = result.components
-        out.update(_cells("sd_within", within))
-        out.update(_cells("sd_between", between, analytic=False))
+        out.update(_cells(prefix + within.name, within))
+        out.update(_cells(prefix + between.name, between, analytic=False))
     return out
 
 
-def _regression_cells(prefix: str, fit) -> dict[str, object]:
-    return {
-        f"{prefix}_slope": fit.slope,
-        f"{prefix}_slope_ci_low": fit.slope_ci.low,
-        f"{prefix}_slope_ci_high": fit.slope_ci.high,
-        f"{prefix}_intercept": fit.intercept,
-        f"{prefix}_intercept_ci_low": fit.intercept_ci.low,
-        f"{prefix}_intercept_ci_high": fit.intercept_ci.high,
-        f"{prefix}_ci_method": fit.slope_ci.method,
-    }
+def _regression_cells(prefix: str, fit: MethodRegression) -> dict[str, object]:
+    out: dict[str, object] = {}
+    for estimate in (fit.slope, fit.intercept):
+        out.update(_cells(f"{prefix}_{estimate.name}", estimate, analytic=False))
+    out[f"{prefix}_ci_method"] = fit.slope.ci.method
+    return out
 
 
 def _nan_cells(columns: Iterable[str]) -> dict[str, float]:
@@ -346,34 +183,7 @@ def _row(
 ) -> tuple[dict[str, object], list[str]]:
     """The statistics cells of one row and its remarks (not-estimable reasons first)."""
     ctx = context(data, confidence_level, n_boot, seed, counts)
-    analyses = [
-        ba2007_analysis("difference"),
-        subject_mean_analysis("difference"),
-        PROPORTIONAL,
-        PEARSON_ANALYSIS,
-        SPEARMAN_ANALYSIS,
-        RM_CORR_ANALYSIS,
-        CCC_ANALYSIS,
-        ICC_ANALYSIS,
-    ]
-    if ratio:
-        analyses.append(ba2007_analysis("ratio"))
-    results = run_analyses(data, tuple(analyses), ctx)
-    ba, sm, prop, pearson, spearman, rm, ccc, icc = results[:8]
-    cells: dict[str, object] = {}
-    cells.update(_loa_cells(ba))
-    cells.update(_loa_cells(sm, "subject_mean_"))
-    cells.update(_cells("prop_slope", prop.slope))
-    cells.update(_cells("prop_intercept", prop.intercept))
-    cells.update(_cells("pearson_r", pearson.estimate))
-    cells.update(_cells("spearman_rho", spearman.estimate))
-    cells.update(_cells("rm_corr", rm.estimate))
-    cells.update({"rm_corr_df": rm.df, "rm_corr_p_value": rm.p_value})
-    cells.update(_cells("ccc", ccc.estimate))
-    cells.update(_cells("icc", icc.estimate))
-    remarks = [r.note for r in results if r.note and "not estimable" not in r.note]
-    if ratio:
-        cells.update(_loa_cells(results[8], "ratio_"))
+    cells, remarks = _bootstrap_cells(data, ctx, ratio)
     fit_options = {
         "subject": data.codes,
         "confidence_level": confidence_level,
@@ -396,24 +206,12 @@ def _row(
     }
     if data.n_pairs > pb_max_pairs and data.n_subjects >= 2:
         del fits["pb"]
-        cells.update(_nan_cells(_regression_columns("pb", "")))
+        cells.update(_nan_cells(regression_columns("pb", "")))
         remarks.append(
             f"Passing-Bablok not computed: {data.n_pairs:,} pairs exceed pb_max_pairs = "
             f"{pb_max_pairs:,} (raise it to compute the fit, 10 to 20 s per million pairs)"
         )
-    for prefix, fit in fits.items():
-        if data.n_subjects < 2:
-            cells.update(_nan_cells(_regression_columns(prefix, "")))
-            continue
-        try:
-            result = fit()
-        except ValueError as error:  # degenerate input the regression refuses: say why
-            cells.update(_nan_cells(_regression_columns(prefix, "")))
-            remarks.append(f"{prefix} not estimable: {error}")
-            continue
-        cells.update(_regression_cells(prefix, result))
-        if result.note:
-            remarks.append(f"{result.procedure}: {result.note}")
+    _regression_fit_cells(fits, data, cells, remarks)
     if regression_limits:
         lines = regression_based_limits(
             data.reference,
@@ -427,6 +225,64 @@ def _row(
     return cells, remarks
 
 
+def _bootstrap_cells(
+    data: PairedValues, ctx: EstimationContext, ratio: bool
+) -> tuple[dict[str, object], list[str]]:
+    """Cells of the statistics that share one pass of the subject cluster bootstrap, and
+    their remarks."""
+    analyses = [
+        ba2007_analysis("difference"),
+        subject_mean_analysis("difference"),
+        PROPORTIONAL,
+        PEARSON_ANALYSIS,
+        SPEARMAN_ANALYSIS,
+        RM_CORR_ANALYSIS,
+        CCC_ANALYSIS,
+        ICC_ANALYSIS,
+    ]
+    if ratio:
+        analyses.append(ba2007_analysis("ratio"))
+    results = run_analyses(data, tuple(analyses), ctx)
+    ba, sm, prop, pearson, spearman, rm, ccc, icc = results[:8]
+    cells: dict[str, object] = {}
+    cells.update(_loa_cells(ba))
+    cells.update(_loa_cells(sm, "subject_mean_"))
+    cells.update(_cells("prop_slope", prop.slope))
+    cells.update(_cells("prop_intercept", prop.intercept))
+    for single in (pearson, spearman, rm):
+        cells.update(_cells(single.quantity, single))
+    cells.update({"rm_corr_df": rm.df, "rm_corr_p_value": rm.p_value})
+    for single in (ccc, icc):
+        cells.update(_cells(single.quantity, single))
+    remarks = [r.note for r in results if r.note and "not estimable" not in r.note]
+    if ratio:
+        cells.update(_loa_cells(results[8]))
+    return cells, remarks
+
+
+def _regression_fit_cells(
+    fits: Mapping[str, Callable[[], MethodRegression]],
+    data: PairedValues,
+    cells: dict[str, object],
+    remarks: list[str],
+) -> None:
+    """Add the cells of each method-comparison fit (NaN when refused) and its remarks."""
+    for prefix, fit in fits.items():
+        if data.n_subjects < 2:
+            cells.update(_nan_cells(regression_columns(prefix, "")))
+            continue
+        try:
+            result = fit()
+        except ValueError as error:  # degenerate input the regression refuses: say why
+            cells.update(_nan_cells(regression_columns(prefix, "")))
+            remarks.append(f"{prefix} not estimable: {error}")
+            continue
+        cells.update(_regression_cells(prefix, result))
+        if result.note:
+            remarks.append(f"{result.procedure}: {result.note}")
+
+
+# Long: the numpydoc Parameters and Examples of the table's entry point (the body is ~20 lines)
 def agreement_table(
     paired: pd.DataFrame,
     *,
@@ -488,19 +344,31 @@ def agreement_table(
 
     Each statistic's reference and validation are in its own function's docstring
     (:mod:`cohort.stats.agreement`, :mod:`cohort.stats.correlation`,
-    :mod:`cohort.stats.concordance`,
-    :mod:`cohort.stats.regression`); tests/test_agreement_table.py checks that the rows equal those
-    functions' results.
+    :mod:`cohort.stats.concordance`, :mod:`cohort.stats.regression`);
+    tests/analysis/test_agreement_table.py checks that the rows equal those functions' results.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> rng = np.random.default_rng(0)
+    >>> truth = rng.normal(20, 4, 24)
+    >>> paired = pd.DataFrame({
+    ...     "parameter": "ff", "method": "quick", "reference": "fit",
+    ...     "subject": np.repeat(["s1", "s2", "s3", "s4"], 6),
+    ...     "reference_value": truth + rng.normal(0, 0.5, 24),
+    ...     "test_value": truth + 1.0 + rng.normal(0, 0.5, 24),
+    ... })
+    >>> table = agreement_table(paired, strata=("all",), n_boot=100, seed=1)
+    >>> row = table.iloc[0]
+    >>> print(row["stratum"], row["n_subjects"], row["n_pairs"])
+    all 4 24
+    >>> f"{row['bias']:.2f} [{row['bias_ci_low']:.2f}, {row['bias_ci_high']:.2f}]"
+    '0.94 [0.76, 1.10]'
     """
     check_options(confidence_level, n_boot)
     if regression_n_boot is None:
         regression_n_boot = n_boot
-    elif not _is_count(regression_n_boot):
-        raise ValueError(
-            f"regression_n_boot must be a non-negative integer or None, got {regression_n_boot!r}"
-        )
-    if not _is_count(pb_max_pairs):
-        raise ValueError(f"pb_max_pairs must be a non-negative integer, got {pb_max_pairs!r}")
+    _check_counts(regression_n_boot, pb_max_pairs)
     _check(paired, strata, extra_strata, ratio_parameters, error_ratio)
     options = {
         "confidence_level": confidence_level,
@@ -511,7 +379,30 @@ def agreement_table(
         "regression_n_boot": regression_n_boot,
         "pb_max_pairs": pb_max_pairs,
     }
-    masks = _strata_masks(paired, strata, extra_strata)
+    jobs = _jobs(paired, _strata_masks(paired, strata, extra_strata), ratio_parameters)
+    try:
+        rows = ordered_map(functools.partial(_row_job, options=options), jobs, workers)
+    finally:
+        _PROCESS_COUNTS.clear()
+    return pd.DataFrame(rows, columns=list(AGREEMENT_COLUMNS))
+
+
+def _check_counts(regression_n_boot: object, pb_max_pairs: object) -> None:
+    if not _is_count(regression_n_boot):
+        raise ValueError(
+            f"regression_n_boot must be a non-negative integer or None, got {regression_n_boot!r}"
+        )
+    if not _is_count(pb_max_pairs):
+        raise ValueError(f"pb_max_pairs must be a non-negative integer, got {pb_max_pairs!r}")
+
+
+def _jobs(
+    paired: pd.DataFrame,
+    masks: list[tuple[str, np.ndarray]],
+    ratio_parameters: Sequence[str],
+) -> list[tuple[dict[str, str], PairedValues, bool]]:
+    """One job per row: (identity columns, the row's pairs, ratio scale or not), in the
+    table's order (parameters, then methods, then strata)."""
     # Codes in sorted label order, as the statistics' own functions number subjects.
     subject_codes, subjects = pd.factorize(paired["subject"].astype(str), sort=True)
     x_all = paired["reference_value"].to_numpy(dtype=float)
@@ -534,11 +425,7 @@ def agreement_table(
                     x_all[selected], y_all[selected], subject_codes[selected], len(subjects)
                 )
                 jobs.append(({**identity, "stratum": stratum}, data, parameter in ratio_parameters))
-    try:
-        rows = ordered_map(functools.partial(_row_job, options=options), jobs, workers)
-    finally:
-        _PROCESS_COUNTS.clear()
-    return pd.DataFrame(rows, columns=list(AGREEMENT_COLUMNS))
+    return jobs
 
 
 def _is_count(value: object) -> bool:

@@ -24,29 +24,67 @@ from typing import Literal
 import numpy as np
 import pandas as pd
 from numpy.typing import ArrayLike
-from scipy import stats
 
+from cohort.stats._agreement_core import (
+    LOA_MULTIPLIER,
+    MIN_SUBJECTS,
+    _all_not_estimable,
+    _key,
+    _proportional_reason,
+    ba2007_analytic,
+    ba2007_statistic,
+    cluster_robust_line,
+    proportional_statistic,
+    subject_mean_analytic,
+    subject_mean_statistic,
+)
+from cohort.stats._data import accepts_data
 from cohort.stats.bootstrap import (
     DEFAULT_N_BOOT,
     DEFAULT_SEED,
     Analysis,
-    Estimate,
     EstimationContext,
     SubjectSums,
     analyse,
-    check_options,
-    context,
-    estimates_frame,
-    paired_values,
-    resample_counts,
 )
-from cohort.stats.results import ConfidenceInterval, warn_not_estimable
+from cohort.stats.regression_limits import (
+    REGRESSION_LIMIT_NAMES,
+    RegressionLimits,
+    regression_based_limits,
+)
+from cohort.stats.results import (
+    ConfidenceInterval,
+    Estimate,
+    Result,
+    estimates_frame,
+    warn_not_estimable,
+)
 
-LOA_MULTIPLIER = 1.96
-"""Limits of agreement are bias -/+ 1.96 SD (Bland & Altman 1986)."""
-
-MIN_SUBJECTS = 2
-"""Subject-level inference needs at least two subjects."""
+# Re-exported: the agreement namespace as it was before the split (statistics of totals,
+# analytic intervals and the regression-based limits live in their own modules).
+__all__ = [
+    "LOA_MULTIPLIER",
+    "MIN_SUBJECTS",
+    "PROPORTIONAL",
+    "REGRESSION_LIMIT_NAMES",
+    "SCALES",
+    "LimitsOfAgreement",
+    "ProportionalBias",
+    "RegressionLimits",
+    "ba2007_analysis",
+    "ba2007_analytic",
+    "ba2007_statistic",
+    "bias",
+    "cluster_robust_line",
+    "limits_of_agreement",
+    "proportional_bias",
+    "proportional_statistic",
+    "regression_based_limits",
+    "subject_mean_analysis",
+    "subject_mean_analytic",
+    "subject_mean_limits",
+    "subject_mean_statistic",
+]
 
 Scale = Literal["difference", "ratio"]
 SCALES: tuple[str, ...] = ("difference", "ratio")
@@ -81,74 +119,11 @@ def _names(scale: str) -> dict[str, str]:
     }
 
 
-def _key(scale: str, procedure: str, name: str) -> str:
-    """Key of a statistic in a bootstrap-draws mapping (unique across procedures and scales)."""
-    return f"{'log_' if scale == 'ratio' else ''}{procedure}_{name}"
-
-
-# --- statistics as functions of totals (vectorised over resamples) -------------------------
-
-
-def ba2007_statistic(t: Mapping[str, np.ndarray], scale: str = "difference") -> dict:
-    """Bias, SD and limits of Bland & Altman (2007) from totals, see :func:`limits_of_agreement`."""
-    p = "d" if scale == "difference" else "l"
-    if p not in t:
-        return {}
-    n, k = t["n"], t["one"]
-    s, ss, between = t[p], t[p + p], t[f"{p}_sq_n"]
-    ssb = np.maximum(between - s * s / n, 0.0)
-    ssw = np.maximum(ss - between, 0.0)
-    msb = ssb / (k - 1)
-    dfw = n - k
-    msw = np.where(dfw > 0, ssw / np.where(dfw > 0, dfw, 1.0), np.nan)
-    m0 = (n * n - t["n2"]) / ((k - 1) * n)
-    var_b = np.where(dfw > 0, np.maximum((msb - msw) / m0, 0.0), np.nan)
-    var_total = np.where(dfw > 0, var_b + msw, msb)
-    bias = t[f"{p}_offset"] + s / n
-    sd = np.sqrt(var_total)
-    key = partial(_key, scale, "ba")
-    return {
-        key("bias"): bias,
-        key("sd"): sd,
-        key("loa_low"): bias - LOA_MULTIPLIER * sd,
-        key("loa_high"): bias + LOA_MULTIPLIER * sd,
-        key("sd_within"): np.sqrt(msw),
-        key("sd_between"): np.sqrt(var_b),
-    }
-
-
-def subject_mean_statistic(t: Mapping[str, np.ndarray], scale: str = "difference") -> dict:
-    """Bland & Altman (1986) limits on per-subject mean differences, from totals."""
-    p = "d" if scale == "difference" else "l"
-    if p not in t:
-        return {}
-    k, s, ss = t["one"], t[f"{p}_bar"], t[f"{p}_bar2"]
-    bias = t[f"{p}_offset"] + s / k
-    sd = np.sqrt(np.maximum(ss - s * s / k, 0.0) / (k - 1))
-    key = partial(_key, scale, "sm")
-    return {
-        key("bias"): bias,
-        key("sd"): sd,
-        key("loa_low"): bias - LOA_MULTIPLIER * sd,
-        key("loa_high"): bias + LOA_MULTIPLIER * sd,
-    }
-
-
-def proportional_statistic(t: Mapping[str, np.ndarray]) -> dict:
-    """Least-squares line of the difference on the mean of the methods, from totals."""
-    n = t["n"]
-    saa = t["aa"] - t["a"] ** 2 / n
-    sad = t["ad"] - t["a"] * t["d"] / n
-    slope = sad / saa
-    intercept = (t["d_offset"] + t["d"] / n) - slope * (t["centre"] + t["a"] / n)
-    return {"prop_slope": slope, "prop_intercept": intercept}
-
-
 # --- result types ---------------------------------------------------------------------------
 
 
-@dataclass(frozen=True)
-class LimitsOfAgreement:
+@dataclass(frozen=True, repr=False)
+class LimitsOfAgreement(Result):
     """Bias and limits of agreement (test minus reference), with intervals.
 
     On the ratio scale ``bias``, ``lower`` and ``upper`` are ratios test/reference
@@ -177,59 +152,8 @@ class LimitsOfAgreement:
         return frame
 
 
-@dataclass(frozen=True)
-class RegressionLimits:
-    """Regression-based limits of agreement (Bland & Altman 1999, section 3.2).
-
-    ``D = b0 + b1 A`` is the mean difference at mean ``A`` of the two methods, and the limits
-    are ``b0 + b1 A -/+ 1.96 sqrt(pi/2) (c0 + c1 A)`` where ``c0 + c1 A`` is the regression of
-    the absolute residuals on ``A`` (the mean absolute residual is ``sqrt(2/pi)`` SD for
-    normal residuals).
-    """
-
-    bias_intercept: Estimate
-    bias_slope: Estimate
-    abs_residual_intercept: Estimate
-    abs_residual_slope: Estimate
-    loa_low_intercept: Estimate
-    loa_low_slope: Estimate
-    loa_high_intercept: Estimate
-    loa_high_slope: Estimate
-    n_subjects: int
-    n_pairs: int
-    note: str = ""
-
-    def at(self, mean: ArrayLike) -> pd.DataFrame:
-        """Mean difference and limits at the given means of the two methods."""
-        a = np.asarray(mean, dtype=float)
-        return pd.DataFrame(
-            {
-                "mean": a,
-                "bias": self.bias_intercept.estimate + self.bias_slope.estimate * a,
-                "loa_low": self.loa_low_intercept.estimate + self.loa_low_slope.estimate * a,
-                "loa_high": self.loa_high_intercept.estimate + self.loa_high_slope.estimate * a,
-            }
-        )
-
-    def to_frame(self) -> pd.DataFrame:
-        frame = estimates_frame(
-            (
-                self.bias_intercept,
-                self.bias_slope,
-                self.abs_residual_intercept,
-                self.abs_residual_slope,
-                self.loa_low_intercept,
-                self.loa_low_slope,
-                self.loa_high_intercept,
-                self.loa_high_slope,
-            )
-        )
-        frame.insert(0, "procedure", "Bland-Altman 1999 regression-based limits")
-        return frame
-
-
-@dataclass(frozen=True)
-class ProportionalBias:
+@dataclass(frozen=True, repr=False)
+class ProportionalBias(Result):
     """Slope and intercept of the difference on the mean of the two methods."""
 
     slope: Estimate
@@ -240,6 +164,7 @@ class ProportionalBias:
     note: str = ""
 
     def to_frame(self) -> pd.DataFrame:
+        """Slope and intercept rows (then the regression-based limits' rows, if computed)."""
         frame = estimates_frame((self.slope, self.intercept))
         frame.insert(0, "procedure", "least squares of difference on mean")
         if self.regression_limits is not None:
@@ -258,119 +183,7 @@ def _loa_reason(sums: SubjectSums, ctx: EstimationContext, scale: str) -> str:
     return ""
 
 
-def _all_not_estimable(ctx: EstimationContext, names: tuple[str, ...], reason: str, what: str):
-    note = warn_not_estimable(what, reason, stacklevel=4)
-    return tuple(ctx.not_estimable(n, reason) for n in names), note
-
-
 # --- analytic intervals ----------------------------------------------------------------------
-
-
-def _variance_ci(
-    components: tuple[tuple[float, float], ...], confidence_level: float
-) -> tuple[float, float]:
-    """MOVER interval for a sum of variance components ``c`` each with ``df`` (Zou 2013)."""
-    alpha = 1.0 - confidence_level
-    total = sum(c for c, _ in components)
-    low_sq = sum((c * (1 - df / stats.chi2.ppf(1 - alpha / 2, df))) ** 2 for c, df in components)
-    high_sq = sum((c * (df / stats.chi2.ppf(alpha / 2, df) - 1)) ** 2 for c, df in components)
-    return max(total - math.sqrt(low_sq), 0.0), total + math.sqrt(high_sq)
-
-
-def _mover_limits(
-    bias: float, se_bias: float, sd: float, var_ci: tuple[float, float], confidence_level: float
-) -> tuple[tuple[float, float], tuple[float, float]]:
-    """MOVER intervals of bias -/+ z SD (Zou 2013): (lower limit CI, upper limit CI)."""
-    q = stats.norm.ppf(0.5 + confidence_level / 2)
-    z = LOA_MULTIPLIER
-    sd_low, sd_high = math.sqrt(var_ci[0]), math.sqrt(var_ci[1])
-    shrink = math.sqrt((q * se_bias) ** 2 + (z * (sd - sd_low)) ** 2)
-    grow = math.sqrt((q * se_bias) ** 2 + (z * (sd_high - sd)) ** 2)
-    lower = (bias - z * sd - grow, bias - z * sd + shrink)
-    upper = (bias + z * sd - shrink, bias + z * sd + grow)
-    return lower, upper
-
-
-def ba2007_analytic(t: Mapping[str, float], scale: str, confidence_level: float) -> dict:
-    """Textbook intervals of the Bland-Altman 2007 quantities.
-
-    Bias: ``t`` interval with ``k - 1`` df on ``var(mean d) = s_b^2 sum(m_i^2)/N^2 + s_w^2/N``.
-    Limits: MOVER of Zou (2013) applied to the ANOVA components, ``s_d^2 = MSB/m0 +
-    (1 - 1/m0) MSW`` with ``k - 1`` and ``N - k`` df; this is Zou's formula when every
-    subject has the same number of segments (``m0`` = harmonic mean = m) and its analogue
-    otherwise; the bias term uses the normal quantile as in Zou (2013). SD: square root of
-    the MOVER interval of ``s_d^2``. Within-subject SD: chi-square interval, ``N - k`` df.
-    """
-    p = "d" if scale == "difference" else "l"
-    n, k = t["n"], t["one"]
-    s, ss, between = t[p], t[p + p], t[f"{p}_sq_n"]
-    bias = t[f"{p}_offset"] + s / n
-    msb = max(between - s * s / n, 0.0) / (k - 1)
-    dfw = n - k
-    alpha = 1.0 - confidence_level
-    out: dict[str, object] = {"truncated": False}
-    if dfw > 0:
-        msw = max(ss - between, 0.0) / dfw
-        m0 = (n * n - t["n2"]) / ((k - 1) * n)
-        var_b_raw = (msb - msw) / m0
-        if var_b_raw < 0:
-            out["truncated"] = True
-            components = ((msw, dfw),)
-            var_b = 0.0
-        else:
-            components = ((msb / m0, k - 1), ((1 - 1 / m0) * msw, dfw))
-            var_b = var_b_raw
-        var_bias = var_b * t["n2"] / n**2 + msw / n
-        within = (
-            math.sqrt(dfw * msw / stats.chi2.ppf(1 - alpha / 2, dfw)),
-            math.sqrt(dfw * msw / stats.chi2.ppf(alpha / 2, dfw)),
-        )
-        out["sd_within"] = within
-    else:
-        components = ((msb, k - 1),)
-        var_bias = msb / n
-    var_total = sum(c for c, _ in components)
-    sd = math.sqrt(var_total)
-    se_bias = math.sqrt(var_bias)
-    h = stats.t.ppf(0.5 + confidence_level / 2, k - 1) * se_bias
-    var_ci = _variance_ci(components, confidence_level)
-    out["bias"] = (bias - h, bias + h)
-    out["loa_low"], out["loa_high"] = _mover_limits(bias, se_bias, sd, var_ci, confidence_level)
-    out["sd"] = (math.sqrt(var_ci[0]), math.sqrt(var_ci[1]))
-    return out
-
-
-def subject_mean_analytic(
-    mean: float, sd: float, k: float, confidence_level: float, analytic: str
-) -> dict:
-    """Intervals of the per-subject-means limits: Carkeet (2015) exact or BA 1986 approximate.
-
-    Exact: ``mean + sd t'/sqrt(k)`` with ``t'`` quantiles of the non-central t distribution
-    with ``k - 1`` df and non-centrality ``1.96 sqrt(k)`` (Carkeet A. Optom Vis Sci 2015;
-    92:e71-e80 (memory)); approximate: ``limit -/+ t(k-1) sqrt(3 sd^2 / k)`` (Bland & Altman
-    1986). Bias: ``t`` interval; SD: chi-square interval.
-    """
-    alpha = 1.0 - confidence_level
-    z = LOA_MULTIPLIER
-    root_k = math.sqrt(k)
-    tq = stats.t.ppf(1 - alpha / 2, k - 1)
-    if analytic == "exact":
-        t_low, t_high = stats.nct.ppf([alpha / 2, 1 - alpha / 2], k - 1, z * root_k)
-        upper = (mean + sd * t_low / root_k, mean + sd * t_high / root_k)
-        lower = (mean - sd * t_high / root_k, mean - sd * t_low / root_k)
-    else:
-        h = tq * math.sqrt(3 * sd * sd / k)
-        upper = (mean + z * sd - h, mean + z * sd + h)
-        lower = (mean - z * sd - h, mean - z * sd + h)
-    return {
-        "bias": (mean - tq * sd / root_k, mean + tq * sd / root_k),
-        "loa_low": lower,
-        "loa_high": upper,
-        "sd": (
-            sd * math.sqrt((k - 1) / stats.chi2.ppf(1 - alpha / 2, k - 1)),
-            sd * math.sqrt((k - 1) / stats.chi2.ppf(alpha / 2, k - 1)),
-        ),
-    }
 
 
 def _interval(bounds: tuple[float, float], ctx: EstimationContext, method: str, scale: str):
@@ -381,6 +194,49 @@ def _interval(bounds: tuple[float, float], ctx: EstimationContext, method: str, 
 
 
 # --- builders ---------------------------------------------------------------------------------
+
+
+_BA2007_METHODS = {
+    "bias": "t, k-1 df, on ANOVA variance components (Bland & Altman 2007)",
+    "loa_low": "MOVER (Zou 2013) on ANOVA variance components",
+    "loa_high": "MOVER (Zou 2013) on ANOVA variance components",
+    "sd": "MOVER (Zou 2013) for the total variance",
+    "sd_within": "chi-square, N-k df",
+}
+
+
+def _loa_analytic(
+    sums: SubjectSums,
+    point: Mapping[str, float],
+    ctx: EstimationContext,
+    *,
+    scale: str,
+    short: str,
+    analytic: str,
+) -> tuple[dict, dict[str, str], str]:
+    """Analytic intervals of the limits (on the analysed scale), their methods and a note."""
+    if short == "ba":
+        intervals = ba2007_analytic(sums.observed(), scale, ctx.confidence_level)
+        note = ""
+        if intervals["truncated"]:
+            note = "between-subject variance estimate negative, set to 0 (common practice)"
+        if ctx.n_pairs == ctx.n_subjects:
+            note = "one pair per subject: within-subject variance not separable"
+        return intervals, _BA2007_METHODS, note
+    p = point[_key(scale, "sm", "bias")], point[_key(scale, "sm", "sd")]
+    intervals = subject_mean_analytic(*p, ctx.n_subjects, ctx.confidence_level, analytic)
+    limit_method = (
+        "exact, non-central t (Carkeet 2015)"
+        if analytic == "exact"
+        else "approximate, SE sqrt(3 s^2/n) (Bland & Altman 1986)"
+    )
+    methods = {
+        "bias": "t, k-1 df, on subject means",
+        "loa_low": limit_method,
+        "loa_high": limit_method,
+        "sd": "chi-square, k-1 df, on subject means",
+    }
+    return intervals, methods, ""
 
 
 def _loa_build(
@@ -406,34 +262,9 @@ def _loa_build(
             procedure, scale, *estimates[:4], estimates[4:], ctx.n_subjects, ctx.n_pairs, note=note
         )
     back = np.exp if scale == "ratio" else None
-    note = ""
-    if short == "ba":
-        intervals = ba2007_analytic(sums.observed(), scale, ctx.confidence_level)
-        methods = {
-            "bias": "t, k-1 df, on ANOVA variance components (Bland & Altman 2007)",
-            "loa_low": "MOVER (Zou 2013) on ANOVA variance components",
-            "loa_high": "MOVER (Zou 2013) on ANOVA variance components",
-            "sd": "MOVER (Zou 2013) for the total variance",
-            "sd_within": "chi-square, N-k df",
-        }
-        if intervals["truncated"]:
-            note = "between-subject variance estimate negative, set to 0 (common practice)"
-        if ctx.n_pairs == ctx.n_subjects:
-            note = "one pair per subject: within-subject variance not separable"
-    else:
-        p = point[_key(scale, "sm", "bias")], point[_key(scale, "sm", "sd")]
-        intervals = subject_mean_analytic(*p, ctx.n_subjects, ctx.confidence_level, analytic)
-        limit_method = (
-            "exact, non-central t (Carkeet 2015)"
-            if analytic == "exact"
-            else "approximate, SE sqrt(3 s^2/n) (Bland & Altman 1986)"
-        )
-        methods = {
-            "bias": "t, k-1 df, on subject means",
-            "loa_low": limit_method,
-            "loa_high": limit_method,
-            "sd": "chi-square, k-1 df, on subject means",
-        }
+    intervals, methods, note = _loa_analytic(
+        sums, point, ctx, scale=scale, short=short, analytic=analytic
+    )
     estimates = []
     for q in quantities:
         key = _key(scale, short, q)
@@ -493,6 +324,7 @@ def subject_mean_analysis(scale: str = "difference", analytic: str = "exact") ->
     )
 
 
+@accepts_data
 def limits_of_agreement(
     reference: ArrayLike,
     test: ArrayLike,
@@ -519,10 +351,30 @@ def limits_of_agreement(
 
     Validated against a hand computation on a balanced design, a statsmodels MixedLM random
     intercept model (variance components), Giavarina (2015) and statsmodels' mean-difference
-    plot (one pair per subject) and Zou's formula on balanced data (tests/test_agreement.py).
+    plot (one pair per subject) and Zou's formula on balanced data (tests/stats/test_agreement.py).
 
     ``scale="ratio"`` analyses ``ln(test / reference)`` and reports the bias and limits as
     ratios; not estimable when any value is <= 0.
+
+    Examples
+    --------
+    >>> ref = [10.1, 12.0, 9.8, 11.5, 13.2, 10.9, 12.4, 9.5, 11.1, 12.8]
+    >>> new = [10.6, 12.1, 10.5, 11.9, 13.0, 11.8, 12.9, 10.1, 11.3, 13.6]
+    >>> subj = ["a", "a", "b", "b", "c", "c", "d", "d", "e", "e"]
+    >>> loa = limits_of_agreement(ref, new, subject=subj, n_boot=200, seed=1)
+    >>> round(loa.bias.estimate, 3), round(loa.lower.estimate, 3), round(loa.upper.estimate, 3)
+    (0.45, -0.388, 1.288)
+    >>> round(loa.bias.analytic_ci.low, 3), round(loa.bias.analytic_ci.high, 3)
+    (0.074, 0.826)
+
+    The same from a DataFrame's columns:
+
+    >>> import pandas as pd
+    >>> df = pd.DataFrame({"ref": ref, "new": new, "subject": subj})
+    >>> limits_of_agreement(
+    ...     data=df, reference="ref", test="new", subject="subject", n_boot=200, seed=1
+    ... ) == loa
+    True
     """
     return analyse(
         reference,
@@ -535,6 +387,7 @@ def limits_of_agreement(
     )
 
 
+@accepts_data
 def bias(
     reference: ArrayLike,
     test: ArrayLike,
@@ -549,6 +402,15 @@ def bias(
 
     The bias of :func:`limits_of_agreement` (Bland & Altman 2007); see there for references,
     intervals and validation.
+
+    Examples
+    --------
+    >>> ref = [10.1, 12.0, 9.8, 11.5, 13.2, 10.9, 12.4, 9.5, 11.1, 12.8]
+    >>> new = [10.6, 12.1, 10.5, 11.9, 13.0, 11.8, 12.9, 10.1, 11.3, 13.6]
+    >>> subj = ["a", "a", "b", "b", "c", "c", "d", "d", "e", "e"]
+    >>> b = bias(ref, new, subject=subj, n_boot=200, seed=1)
+    >>> b.name, round(b.estimate, 3)
+    ('bias', 0.45)
     """
     return limits_of_agreement(
         reference,
@@ -561,6 +423,7 @@ def bias(
     ).bias
 
 
+@accepts_data
 def subject_mean_limits(
     reference: ArrayLike,
     test: ArrayLike,
@@ -583,7 +446,16 @@ def subject_mean_limits(
     Optom Vis Sci 2015) or the 1986 approximation, see :func:`subject_mean_analytic`.
 
     Validated against Giavarina (2015) as given in DOMAIN.md and by a coverage simulation of
-    the exact interval (tests/test_agreement.py).
+    the exact interval (tests/stats/test_agreement.py).
+
+    Examples
+    --------
+    >>> ref = [10.1, 12.0, 9.8, 11.5, 13.2, 10.9, 12.4, 9.5, 11.1, 12.8]
+    >>> new = [10.6, 12.1, 10.5, 11.9, 13.0, 11.8, 12.9, 10.1, 11.3, 13.6]
+    >>> subj = ["a", "a", "b", "b", "c", "c", "d", "d", "e", "e"]
+    >>> sm = subject_mean_limits(ref, new, subject=subj, n_boot=200, seed=1)
+    >>> round(sm.lower.estimate, 3), round(sm.upper.estimate, 3)
+    (0.22, 0.68)
     """
     return analyse(
         reference,
@@ -594,50 +466,6 @@ def subject_mean_limits(
         n_boot=n_boot,
         seed=seed,
     )
-
-
-def cluster_robust_line(sums: SubjectSums, confidence_level: float) -> dict:
-    """Cluster-robust (CR1) intervals of the line of difference on mean.
-
-    Sandwich variance with subject clusters, small-sample factor ``G/(G-1) (N-1)/(N-2)`` and
-    ``t`` with ``G - 1`` df (Liang KY, Zeger SL. Biometrika 1986;73:13-22 (memory)); the
-    per-subject score sums come from the per-subject sums, so no pair-level pass is needed.
-    Validated against
-    statsmodels OLS with ``cov_type="cluster"`` (tests/test_agreement.py).
-    """
-    m, sa, saa = sums.column("n"), sums.column("a"), sums.column("aa")
-    sd_, sad = sums.column("d"), sums.column("ad")
-    n, g = m.sum(), m.size
-    xtx = np.array([[n, sa.sum()], [sa.sum(), saa.sum()]])
-    slope = (sad.sum() - sa.sum() * sd_.sum() / n) / (saa.sum() - sa.sum() ** 2 / n)
-    b0 = (sd_.sum() - slope * sa.sum()) / n
-    scores = np.column_stack([sd_ - b0 * m - slope * sa, sad - b0 * sa - slope * saa])
-    bread = np.linalg.inv(xtx)
-    factor = g / (g - 1) * (n - 1) / (n - 2)
-    cov = factor * bread @ (scores.T @ scores) @ bread
-    c = sums.constants["centre"]
-    # Intercept on the original scale: d_offset + b0 - slope * centre.
-    grad = np.array([1.0, -c])
-    var_intercept = grad @ cov @ grad
-    q = stats.t.ppf(0.5 + confidence_level / 2, g - 1)
-    se_slope, se_int = math.sqrt(cov[1, 1]), math.sqrt(max(var_intercept, 0.0))
-    intercept = sums.constants["d_offset"] + b0 - slope * c
-    return {
-        "slope": (slope - q * se_slope, slope + q * se_slope),
-        "intercept": (intercept - q * se_int, intercept + q * se_int),
-        "se_slope": se_slope,
-        "se_intercept": se_int,
-    }
-
-
-def _proportional_reason(mean_varies: bool, ctx: EstimationContext) -> str:
-    if ctx.n_subjects < MIN_SUBJECTS:
-        return f"fewer than {MIN_SUBJECTS} subjects (n={ctx.n_subjects})"
-    if ctx.n_pairs < 3:
-        return f"fewer than 3 pairs (n={ctx.n_pairs})"
-    if not mean_varies:
-        return "no variation in the mean of the two methods"
-    return ""
 
 
 def _proportional_build(sums, point, draws, ctx) -> ProportionalBias:
@@ -665,6 +493,7 @@ PROPORTIONAL = Analysis(proportional_statistic, _proportional_build)
 """The proportional-bias analysis (see :func:`proportional_bias`)."""
 
 
+@accepts_data
 def proportional_bias(
     reference: ArrayLike,
     test: ArrayLike,
@@ -683,7 +512,16 @@ def proportional_bias(
     ``regression_limits=True`` adds the regression-based limits of the same paper
     (:func:`regression_based_limits`).
 
-    Validated against statsmodels OLS (slope, cluster-robust SE) in tests/test_agreement.py.
+    Validated against statsmodels OLS (slope, cluster-robust SE) in tests/stats/test_agreement.py.
+
+    Examples
+    --------
+    >>> ref = [10.1, 12.0, 9.8, 11.5, 13.2, 10.9, 12.4, 9.5, 11.1, 12.8]
+    >>> new = [10.6, 12.1, 10.5, 11.9, 13.0, 11.8, 12.9, 10.1, 11.3, 13.6]
+    >>> subj = ["a", "a", "b", "b", "c", "c", "d", "d", "e", "e"]
+    >>> pb = proportional_bias(ref, new, subject=subj, n_boot=200, seed=1)
+    >>> round(pb.slope.estimate, 3), round(pb.intercept.estimate, 3)
+    (-0.093, 1.526)
     """
     result = analyse(
         reference,
@@ -707,90 +545,3 @@ def proportional_bias(
     return ProportionalBias(
         result.slope, result.intercept, result.n_subjects, result.n_pairs, limits, result.note
     )
-
-
-def _weighted_line(w: np.ndarray, a: np.ndarray, v: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Weighted least-squares lines of ``v`` (1-D, or 2-D by resample) on ``a``, rows of ``w``."""
-    sw = w.sum(axis=1)
-    sa = w @ a
-    saa = w @ (a * a)
-    if v.ndim == 1:
-        sv, sav = w @ v, w @ (a * v)
-    else:
-        wv = w * v
-        sv, sav = wv.sum(axis=1), wv @ a
-    slope = (sav - sa * sv / sw) / (saa - sa * sa / sw)
-    return (sv - slope * sa) / sw, slope
-
-
-def regression_based_limits(
-    reference: ArrayLike,
-    test: ArrayLike,
-    *,
-    subject: ArrayLike | None = None,
-    confidence_level: float = 0.95,
-    n_boot: int = DEFAULT_N_BOOT,
-    seed: int | None = DEFAULT_SEED,
-) -> RegressionLimits:
-    """Regression-based limits of agreement (Bland & Altman 1999, section 3.2).
-
-    Regress ``D = test - reference`` on ``A = (test + reference)/2``, then the absolute
-    residuals on ``A``; limits ``b0 + b1 A -/+ 1.96 sqrt(pi/2) (c0 + c1 A)``.
-
-    Bland JM, Altman DG. Measuring agreement in method comparison studies. Stat Methods Med
-    Res 1999;8:135-160. Intervals: subject cluster bootstrap, percentile, on the same resamples
-    as the other statistics (the absolute residuals depend on each resample's line, so this
-    bootstrap works on pair weights rather than per-subject sums). No analytic interval.
-    Validated against numpy least squares in tests/test_agreement.py.
-    """
-    check_options(confidence_level, n_boot)
-    data = paired_values(reference, test, subject)
-    ctx = context(data, confidence_level, n_boot, seed)
-    names = (
-        "bias_intercept",
-        "bias_slope",
-        "abs_residual_intercept",
-        "abs_residual_slope",
-        "loa_low_intercept",
-        "loa_low_slope",
-        "loa_high_intercept",
-        "loa_high_slope",
-    )
-    a = 0.5 * (data.reference + data.test)
-    reason = _proportional_reason(bool(a.size) and not np.all(a == a[0]), ctx)
-    if reason:
-        estimates, note = _all_not_estimable(ctx, names, reason, "regression-based limits")
-        return RegressionLimits(*estimates, ctx.n_subjects, ctx.n_pairs, note=note)
-    d = data.test - data.reference
-    centre = a.mean()
-    ac = a - centre
-    factor = LOA_MULTIPLIER * math.sqrt(math.pi / 2)
-
-    def lines(w: np.ndarray) -> np.ndarray:
-        b0, b1 = _weighted_line(w, ac, d)
-        resid = np.abs(d[None, :] - b0[:, None] - b1[:, None] * ac[None, :])
-        c0, c1 = _weighted_line(w, ac, resid)
-        # Back to the uncentred mean A: intercept - slope * centre.
-        b0, c0 = b0 - b1 * centre, c0 - c1 * centre
-        return np.column_stack(
-            [b0, b1, c0, c1, b0 - factor * c0, b1 - factor * c1, b0 + factor * c0, b1 + factor * c1]
-        )
-
-    point = lines(np.ones((1, data.n_pairs)))[0]
-    draws = None
-    if n_boot and ctx.n_subjects >= MIN_SUBJECTS:
-        with np.errstate(invalid="ignore", divide="ignore"):
-            draws = np.concatenate(
-                [
-                    lines(counts[:, data.codes])
-                    for counts in resample_counts(
-                        data.n_subjects, n_boot, seed, row_size=data.n_pairs
-                    )
-                ]
-            )
-    missing = ctx.analytic_not_available("no analytic interval implemented")
-    estimates = [
-        ctx.estimate(name, float(point[j]), None if draws is None else draws[:, j], missing)
-        for j, name in enumerate(names)
-    ]
-    return RegressionLimits(*estimates, ctx.n_subjects, ctx.n_pairs)

@@ -32,9 +32,12 @@ from numpy.typing import ArrayLike
 from scipy import stats
 
 from cohort.domain.options import DEFAULT_N_BOOT, DEFAULT_SEED
-from cohort.stats.results import ConfidenceInterval
+from cohort.stats._data import paired_arrays
+from cohort.stats.results import ConfidenceInterval, Estimate, estimates_frame
 
-__all__ = ["DEFAULT_N_BOOT", "DEFAULT_SEED"]  # the defaults live in cohort.domain.options
+# The defaults live in cohort.domain.options, Estimate in cohort.stats.results; both are
+# re-exported here for the estimators that import them from this module.
+__all__ = ["DEFAULT_N_BOOT", "DEFAULT_SEED", "Estimate", "estimates_frame"]
 
 _CHUNK_ELEMENTS = 4_000_000
 """Resamples per chunk times subjects: bounds the count matrix to about 32 MB."""
@@ -49,51 +52,6 @@ def bootstrap_method(n_boot: int, seed: int | None) -> str:
     """The ``ConfidenceInterval.method`` text of the default interval."""
     drawn = "not reproducible" if seed is None else f"seed={seed}"
     return f"subject cluster bootstrap, percentile, B={n_boot}, {drawn}"
-
-
-@dataclass(frozen=True)
-class Estimate:
-    """A point estimate with its default (subject cluster bootstrap) and analytic intervals.
-
-    ``analytic_ci`` is the textbook interval where one exists (its ``method`` names it); it is
-    reported beside the bootstrap interval so a reader sees how much an interval that treats
-    segments as independent understates uncertainty.
-    """
-
-    name: str
-    estimate: float
-    ci: ConfidenceInterval
-    analytic_ci: ConfidenceInterval
-    n_subjects: int
-    n_pairs: int
-    note: str = ""
-
-    def to_frame(self) -> pd.DataFrame:
-        """One row: name, estimate, both intervals with their methods, counts, note."""
-        return pd.DataFrame([self.row()])
-
-    def row(self) -> dict[str, object]:
-        return {
-            "quantity": self.name,
-            "estimate": self.estimate,
-            "ci_low": self.ci.low,
-            "ci_high": self.ci.high,
-            "ci_method": self.ci.method,
-            "analytic_ci_low": self.analytic_ci.low,
-            "analytic_ci_high": self.analytic_ci.high,
-            "analytic_ci_method": self.analytic_ci.method,
-            "confidence_level": self.ci.level,
-            "n_subjects": self.n_subjects,
-            "n_pairs": self.n_pairs,
-            "note": "; ".join(
-                dict.fromkeys(n for n in (self.note, self.ci.note, self.analytic_ci.note) if n)
-            ),
-        }
-
-
-def estimates_frame(estimates: tuple[Estimate, ...]) -> pd.DataFrame:
-    """Tidy frame of several estimates, one row each."""
-    return pd.DataFrame([e.row() for e in estimates])
 
 
 @dataclass(frozen=True)
@@ -117,16 +75,7 @@ def paired_values(
     reference: ArrayLike, test: ArrayLike, subject: ArrayLike | None = None
 ) -> PairedValues:
     """Check paired values and code their subjects (``subject=None``: one subject per pair)."""
-    x = np.asarray(reference, dtype=float)
-    y = np.asarray(test, dtype=float)
-    for name, v in (("reference", x), ("test", y)):
-        if v.ndim != 1:
-            raise ValueError(f"{name} must be one-dimensional, got shape {v.shape}")
-        if not np.all(np.isfinite(v)):
-            bad = int(np.sum(~np.isfinite(v)))
-            raise ValueError(f"{name} must hold finite values only, got {bad} non-finite")
-    if x.size != y.size:
-        raise ValueError(f"reference and test must have the same length, got {x.size} and {y.size}")
+    x, y = paired_arrays(reference, test)
     if subject is None:
         return PairedValues(x, y, np.arange(x.size), int(x.size))
     labels = np.asarray(subject)
@@ -245,6 +194,16 @@ def paired_sums(data: PairedValues) -> SubjectSums:
     sums = {
         name: np.bincount(codes, weights=col, minlength=k) for name, col in pair_columns.items()
     }
+    sums.update(_derived_sums(sums, k))
+    names = tuple(sums)
+    values = np.column_stack([sums[c] for c in names]) if k else np.zeros((0, len(names)))
+    invariant = _invariant(x, y, codes, k)
+    return SubjectSums(names, values, MappingProxyType(constants), ratio_reason, invariant)
+
+
+def _derived_sums(sums: Mapping[str, np.ndarray], k: int) -> dict[str, np.ndarray]:
+    """Per-subject quantities built from the per-subject sums (within-subject centred sums of
+    squares and products; mean difference and mean log ratio of each subject)."""
     m = sums["n"]
     with np.errstate(invalid="ignore", divide="ignore"):
         derived = {
@@ -260,9 +219,13 @@ def paired_sums(data: PairedValues) -> SubjectSums:
                 derived[f"{p}_sq_n"] = sums[p] * mean
                 derived[f"{p}_bar"] = mean
                 derived[f"{p}_bar2"] = mean * mean
-    sums.update(derived)
-    names = tuple(sums)
-    values = np.column_stack([sums[c] for c in names]) if k else np.zeros((0, len(names)))
+    return derived
+
+
+def _invariant(x: np.ndarray, y: np.ndarray, codes: np.ndarray, k: int) -> frozenset[str]:
+    """The quantities without variation in the observed pairs (see :class:`SubjectSums`)."""
+    n = x.size
+    d = y - x
     invariant = {
         name
         for name, v in (("reference", x), ("test", y), ("mean", 0.5 * (x + y)), ("difference", d))
@@ -274,9 +237,7 @@ def paired_sums(data: PairedValues) -> SubjectSums:
         first[codes[::-1]] = v[::-1]
         if np.all(v == first[codes]):
             invariant.add(f"{name} within subjects")
-    return SubjectSums(
-        names, values, MappingProxyType(constants), ratio_reason, frozenset(invariant)
-    )
+    return frozenset(invariant)
 
 
 def resample_subjects(n_subjects: int, n_boot: int, seed: int | None) -> Iterator[np.ndarray]:

@@ -19,17 +19,17 @@ import pandas as pd
 from numpy.typing import ArrayLike
 from scipy import stats
 
+from cohort.stats._data import accepts_data
 from cohort.stats.bootstrap import (
     DEFAULT_N_BOOT,
     DEFAULT_SEED,
     Analysis,
-    Estimate,
     EstimationContext,
     SubjectSums,
     analyse,
     centred_moments,
 )
-from cohort.stats.results import ConfidenceInterval, warn_not_estimable
+from cohort.stats.results import ConfidenceInterval, Result, SingleQuantity, warn_not_estimable
 
 # --- ICC core (any number of raters) ---------------------------------------------------------
 
@@ -91,9 +91,9 @@ def icc_a1_interval(
     return float(low), float(high)
 
 
-@dataclass(frozen=True)
-class IccForm:
-    """One ICC form with its F test and F-based interval."""
+@dataclass(frozen=True, repr=False)
+class IccForm(Result):
+    """One ICC form with its F test and F-based interval (``estimate``, ``ci``)."""
 
     name: str
     shrout_fleiss: str
@@ -105,10 +105,35 @@ class IccForm:
     df2: float
     p_value: float
 
+    def to_frame(self) -> pd.DataFrame:
+        """One row: the form, its estimate, interval and F test."""
+        return pd.DataFrame([self.row()])
 
-@dataclass(frozen=True)
-class IccForms:
-    """All six ICC forms of an ``n x k`` table of ratings (targets x raters)."""
+    def row(self) -> dict[str, object]:
+        """The row of :meth:`to_frame` as a mapping."""
+        return {
+            "form": self.name,
+            "shrout_fleiss": self.shrout_fleiss,
+            "description": self.description,
+            "icc": self.estimate,
+            "ci_low": self.ci.low,
+            "ci_high": self.ci.high,
+            "ci_method": self.ci.method,
+            "confidence_level": self.ci.level,
+            "f_value": self.f_value,
+            "df1": self.df1,
+            "df2": self.df2,
+            "p_value": self.p_value,
+        }
+
+
+@dataclass(frozen=True, repr=False)
+class IccForms(Result):
+    """All six ICC forms of an ``n x k`` table of ratings (targets x raters).
+
+    ``n_targets`` and ``n_raters`` are the table's rows and columns (the terms of the
+    two-way ANOVA; a target is a rated unit, e.g. a subject or a segment).
+    """
 
     forms: tuple[IccForm, ...]
     n_targets: int
@@ -122,24 +147,10 @@ class IccForms:
         raise KeyError(name)
 
     def to_frame(self) -> pd.DataFrame:
+        """One row per form (see :meth:`IccForm.to_frame`) with the table's size."""
         return pd.DataFrame(
             [
-                {
-                    "form": f.name,
-                    "shrout_fleiss": f.shrout_fleiss,
-                    "description": f.description,
-                    "icc": f.estimate,
-                    "ci_low": f.ci.low,
-                    "ci_high": f.ci.high,
-                    "ci_method": f.ci.method,
-                    "confidence_level": f.ci.level,
-                    "f_value": f.f_value,
-                    "df1": f.df1,
-                    "df2": f.df2,
-                    "p_value": f.p_value,
-                    "n_targets": self.n_targets,
-                    "n_raters": self.n_raters,
-                }
+                {**f.row(), "n_targets": self.n_targets, "n_raters": self.n_raters}
                 for f in self.forms
             ]
         )
@@ -167,7 +178,17 @@ def icc_forms(ratings: ArrayLike, *, confidence_level: float = 0.95) -> IccForms
     intraclass correlation coefficients. Psychol Methods 1996;1:30-46 (Tables 4 and 7) (memory);
     Shrout PE, Fleiss JL. Intraclass correlations: uses in assessing rater reliability.
     Psychol Bull 1979;86:420-428 (memory). Validated against the published Shrout-Fleiss example
-    (six targets, four judges) and pingouin.intraclass_corr (tests/test_concordance.py).
+    (six targets, four judges) and pingouin.intraclass_corr (tests/stats/test_concordance.py).
+
+    Examples
+    --------
+    The Shrout & Fleiss (1979) example, six targets rated by four judges:
+
+    >>> ratings = [[9, 2, 5, 8], [6, 1, 3, 2], [8, 4, 6, 8],
+    ...            [7, 1, 2, 6], [10, 5, 6, 9], [6, 2, 4, 7]]
+    >>> forms = icc_forms(ratings)
+    >>> round(forms["ICC(2,1)"].estimate, 2), round(forms["ICC(3,1)"].estimate, 2)
+    (0.29, 0.71)
     """
     table = np.asarray(ratings, dtype=float)
     if table.ndim != 2:
@@ -252,11 +273,20 @@ def ccc_statistic(t: Mapping[str, np.ndarray]) -> dict:
     return {"ccc": 2 * sxy / n / ((sxx + syy) / n + shift**2)}
 
 
-@dataclass(frozen=True)
-class Concordance:
-    """Lin's concordance correlation ``rho_c = r C_b`` (precision times accuracy)."""
+@dataclass(frozen=True, repr=False)
+class Concordance(SingleQuantity):
+    """Lin's concordance correlation ``rho_c = r C_b`` (precision times accuracy).
 
-    estimate: Estimate
+    ``estimate`` is ``rho_c``, ``ci`` its default (subject cluster bootstrap) interval and
+    ``analytic_ci`` Lin's z-transform interval.
+    """
+
+    quantity = "ccc"
+    procedure = "Lin's concordance correlation"
+
+    estimate: float
+    ci: ConfidenceInterval
+    analytic_ci: ConfidenceInterval
     pearson_r: float
     """Precision: Pearson's r."""
     accuracy: float
@@ -266,26 +296,30 @@ class Concordance:
     note: str = ""
 
     def to_frame(self) -> pd.DataFrame:
-        frame = self.estimate.to_frame()
-        frame.insert(0, "procedure", "Lin's concordance correlation")
+        """One row: the estimate, both intervals, then ``pearson_r`` and ``accuracy``."""
+        frame = super().to_frame()
         frame["pearson_r"] = self.pearson_r
         frame["accuracy"] = self.accuracy
         return frame
 
 
-@dataclass(frozen=True)
-class IntraclassCorrelation:
-    """ICC(A,1) of the two methods with every (subject, segment) pair as a target."""
+@dataclass(frozen=True, repr=False)
+class IntraclassCorrelation(SingleQuantity):
+    """ICC(A,1) of the two methods with every (subject, segment) pair as a target.
 
-    estimate: Estimate
+    ``estimate`` is the ICC, ``ci`` its default (subject cluster bootstrap) interval and
+    ``analytic_ci`` the F interval of McGraw & Wong (1996).
+    """
+
+    quantity = "icc"
+    procedure = "ICC(A,1), two-way, absolute agreement, single measurement"
+
+    estimate: float
+    ci: ConfidenceInterval
+    analytic_ci: ConfidenceInterval
     n_subjects: int
     n_pairs: int
     note: str = ""
-
-    def to_frame(self) -> pd.DataFrame:
-        frame = self.estimate.to_frame()
-        frame.insert(0, "procedure", "ICC(A,1), two-way, absolute agreement, single measurement")
-        return frame
 
 
 def lin_z_se(ccc: float, r: float, shift: float, sx: float, sy: float, n: int) -> float:
@@ -320,8 +354,11 @@ def _ccc_build(sums, point, draws, ctx) -> Concordance:
     reason = _reason(sums, ctx)
     if reason:
         note = warn_not_estimable("concordance correlation", reason, stacklevel=3)
+        missing = ctx.not_estimable("ccc", reason)
         return Concordance(
-            ctx.not_estimable("ccc", reason),
+            missing.estimate,
+            missing.ci,
+            missing.analytic_ci,
             math.nan,
             math.nan,
             ctx.n_subjects,
@@ -357,16 +394,17 @@ def _ccc_build(sums, point, draws, ctx) -> Concordance:
                 ctx.confidence_level,
                 method,
             )
-    estimate = ctx.estimate("ccc", ccc, None if draws is None else draws["ccc"], analytic)
-    return Concordance(estimate, r, accuracy, ctx.n_subjects, ctx.n_pairs)
+    e = ctx.estimate("ccc", ccc, None if draws is None else draws["ccc"], analytic)
+    return Concordance(e.estimate, e.ci, e.analytic_ci, r, accuracy, ctx.n_subjects, ctx.n_pairs)
 
 
 def _icc_build(sums, point, draws, ctx) -> IntraclassCorrelation:
     reason = _reason(sums, ctx)
     if reason:
         note = warn_not_estimable("ICC(A,1)", reason, stacklevel=3)
+        missing = ctx.not_estimable("icc", reason)
         return IntraclassCorrelation(
-            ctx.not_estimable("icc", reason), ctx.n_subjects, ctx.n_pairs, note
+            missing.estimate, missing.ci, missing.analytic_ci, ctx.n_subjects, ctx.n_pairs, note
         )
     msr, msc, mse = _two_rater_mean_squares(sums.observed())
     method = "F with Satterthwaite df (McGraw & Wong 1996), pairs as independent targets"
@@ -377,14 +415,15 @@ def _icc_build(sums, point, draws, ctx) -> IntraclassCorrelation:
         analytic = ConfidenceInterval.not_estimable(
             "F interval undefined (ICC of 1 or no residual variation)", ctx.confidence_level, method
         )
-    estimate = ctx.estimate("icc", point["icc"], None if draws is None else draws["icc"], analytic)
-    return IntraclassCorrelation(estimate, ctx.n_subjects, ctx.n_pairs)
+    e = ctx.estimate("icc", point["icc"], None if draws is None else draws["icc"], analytic)
+    return IntraclassCorrelation(e.estimate, e.ci, e.analytic_ci, ctx.n_subjects, ctx.n_pairs)
 
 
 CCC_ANALYSIS = Analysis(ccc_statistic, _ccc_build)
 ICC_ANALYSIS = Analysis(icc_statistic, _icc_build)
 
 
+@accepts_data
 def concordance_correlation(
     reference: ArrayLike,
     test: ArrayLike,
@@ -403,7 +442,18 @@ def concordance_correlation(
     1989;45:255-268 (and the correction, Biometrics 2000;56:324-325 (memory)). Analytic interval:
     Lin's z transform (:func:`lin_z_se`), treating pairs as independent; default: subject
     cluster bootstrap. Validated against an independent computation from the mean squared
-    difference and against the Monte Carlo SD of ``atanh(rho_c)`` (tests/test_concordance.py).
+    difference and against the Monte Carlo SD of ``atanh(rho_c)`` (tests/stats/test_concordance.py).
+
+    Examples
+    --------
+    >>> ref = [10.1, 12.0, 9.8, 11.5, 13.2, 10.9, 12.4, 9.5, 11.1, 12.8]
+    >>> new = [10.6, 12.1, 10.5, 11.9, 13.0, 11.8, 12.9, 10.1, 11.3, 13.6]
+    >>> subj = ["a", "a", "b", "b", "c", "c", "d", "d", "e", "e"]
+    >>> c = concordance_correlation(ref, new, subject=subj, n_boot=200, seed=1)
+    >>> round(c.estimate, 3), round(c.pearson_r, 3), round(c.accuracy, 3)
+    (0.895, 0.966, 0.926)
+    >>> round(c.ci.low, 3), round(c.ci.high, 3)
+    (0.842, 0.917)
     """
     return analyse(
         reference,
@@ -416,6 +466,7 @@ def concordance_correlation(
     )
 
 
+@accepts_data
 def icc_agreement(
     reference: ArrayLike,
     test: ArrayLike,
@@ -430,7 +481,16 @@ def icc_agreement(
     Each (subject, segment) pair is a target, the two methods are the raters. Formula and
     F-based interval: McGraw & Wong (1996), see :func:`icc_forms`; the F interval treats
     targets as independent, the default subject cluster bootstrap does not. Validated against
-    pingouin.intraclass_corr on simulated cohort-like data (tests/test_concordance.py).
+    pingouin.intraclass_corr on simulated cohort-like data (tests/stats/test_concordance.py).
+
+    Examples
+    --------
+    >>> ref = [10.1, 12.0, 9.8, 11.5, 13.2, 10.9, 12.4, 9.5, 11.1, 12.8]
+    >>> new = [10.6, 12.1, 10.5, 11.9, 13.0, 11.8, 12.9, 10.1, 11.3, 13.6]
+    >>> subj = ["a", "a", "b", "b", "c", "c", "d", "d", "e", "e"]
+    >>> icc = icc_agreement(ref, new, subject=subj, n_boot=200, seed=1)
+    >>> round(icc.estimate, 3), round(icc.analytic_ci.low, 3), round(icc.analytic_ci.high, 3)
+    (0.904, 0.146, 0.981)
     """
     return analyse(
         reference,

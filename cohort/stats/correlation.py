@@ -19,60 +19,75 @@ import pandas as pd
 from numpy.typing import ArrayLike
 from scipy import stats
 
+from cohort.stats._data import accepts_data
 from cohort.stats.bootstrap import (
     DEFAULT_N_BOOT,
     DEFAULT_SEED,
     Analysis,
-    Estimate,
     EstimationContext,
     SubjectSums,
     analyse,
     centred_moments,
     fisher_z_interval,
 )
-from cohort.stats.results import warn_not_estimable
+from cohort.stats.results import ConfidenceInterval, SingleQuantity, warn_not_estimable
 
 PEARSON = "Pearson"
 SPEARMAN = "Spearman"
 REPEATED_MEASURES = "repeated-measures (Bakdash & Marusich 2017)"
+QUANTITIES: dict[str, str] = {
+    PEARSON: "pearson_r",
+    SPEARMAN: "spearman_rho",
+    REPEATED_MEASURES: "rm_corr",
+}
+"""The quantity of each procedure: its key in the statistics and its agreement-table column."""
 
 
 def pearson_statistic(t: Mapping[str, np.ndarray]) -> dict:
     """Pearson's r of reference and test from totals."""
     sxx, syy, sxy = centred_moments(t, "x", "y")
-    return {"pearson_r": sxy / np.sqrt(sxx * syy)}
+    return {QUANTITIES[PEARSON]: sxy / np.sqrt(sxx * syy)}
 
 
 def spearman_statistic(t: Mapping[str, np.ndarray]) -> dict:
     """Spearman's rho: Pearson's r of the full-sample mid-ranks, from totals."""
     sxx, syy, sxy = centred_moments(t, "rx", "ry")
-    return {"spearman_rho": sxy / np.sqrt(sxx * syy)}
+    return {QUANTITIES[SPEARMAN]: sxy / np.sqrt(sxx * syy)}
 
 
 def rm_corr_statistic(t: Mapping[str, np.ndarray]) -> dict:
     """Repeated-measures r from the within-subject centred sums of squares and products."""
-    return {"rm_corr": t["cxy"] / np.sqrt(t["cxx"] * t["cyy"])}
+    return {QUANTITIES[REPEATED_MEASURES]: t["cxy"] / np.sqrt(t["cxx"] * t["cyy"])}
 
 
-@dataclass(frozen=True)
-class Correlation:
+@dataclass(frozen=True, repr=False)
+class Correlation(SingleQuantity):
     """A correlation coefficient with its intervals, degrees of freedom and p-value.
 
-    ``p_value`` tests r = 0 with ``t = r sqrt(df / (1 - r^2))`` on ``df`` degrees of freedom
-    (pairs treated as independent for Pearson and Spearman, ``df = N - 2``).
+    ``estimate`` is the coefficient, ``ci`` its default (subject cluster bootstrap) interval
+    and ``analytic_ci`` the Fisher z interval. ``p_value`` tests r = 0 with
+    ``t = r sqrt(df / (1 - r^2))`` on ``df`` degrees of freedom (pairs treated as independent
+    for Pearson and Spearman, ``df = N - 2``).
     """
 
     procedure: str
-    estimate: Estimate
+    estimate: float
+    ci: ConfidenceInterval
+    analytic_ci: ConfidenceInterval
     df: float
     p_value: float
     n_subjects: int
     n_pairs: int
     note: str = ""
 
+    @property
+    def quantity(self) -> str:  # type: ignore[override]
+        """``pearson_r``, ``spearman_rho`` or ``rm_corr``."""
+        return QUANTITIES[self.procedure]
+
     def to_frame(self) -> pd.DataFrame:
-        frame = self.estimate.to_frame()
-        frame.insert(0, "procedure", self.procedure)
+        """One row: the estimate, both intervals, then ``df`` and ``p_value``."""
+        frame = super().to_frame()
         frame["df"] = self.df
         frame["p_value"] = self.p_value
         return frame
@@ -105,9 +120,12 @@ def _build(sums, point, draws, ctx, *, procedure: str, key: str) -> Correlation:
     reason = _reason(sums, ctx, procedure)
     if reason:
         note = warn_not_estimable(f"{procedure} correlation", reason, stacklevel=3)
+        missing = ctx.not_estimable(key, reason)
         return Correlation(
             procedure,
-            ctx.not_estimable(key, reason),
+            missing.estimate,
+            missing.ci,
+            missing.analytic_ci,
             math.nan,
             math.nan,
             ctx.n_subjects,
@@ -137,19 +155,25 @@ def _build(sums, point, draws, ctx, *, procedure: str, key: str) -> Correlation:
         )
     analytic = fisher_z_interval(r, se, ctx.confidence_level, method)
     detail = "ranks of the full sample (approximation)" if procedure == SPEARMAN else ""
-    estimate = ctx.estimate(key, r, None if draws is None else draws[key], analytic, detail=detail)
-    return Correlation(procedure, estimate, float(df), _p_value(r, df), ctx.n_subjects, n)
+    e = ctx.estimate(key, r, None if draws is None else draws[key], analytic, detail=detail)
+    return Correlation(
+        procedure, e.estimate, e.ci, e.analytic_ci, float(df), _p_value(r, df), ctx.n_subjects, n
+    )
 
 
-PEARSON_ANALYSIS = Analysis(pearson_statistic, partial(_build, procedure=PEARSON, key="pearson_r"))
+PEARSON_ANALYSIS = Analysis(
+    pearson_statistic, partial(_build, procedure=PEARSON, key=QUANTITIES[PEARSON])
+)
 SPEARMAN_ANALYSIS = Analysis(
-    spearman_statistic, partial(_build, procedure=SPEARMAN, key="spearman_rho")
+    spearman_statistic, partial(_build, procedure=SPEARMAN, key=QUANTITIES[SPEARMAN])
 )
 RM_CORR_ANALYSIS = Analysis(
-    rm_corr_statistic, partial(_build, procedure=REPEATED_MEASURES, key="rm_corr")
+    rm_corr_statistic,
+    partial(_build, procedure=REPEATED_MEASURES, key=QUANTITIES[REPEATED_MEASURES]),
 )
 
 
+@accepts_data
 def pearson(
     reference: ArrayLike,
     test: ArrayLike,
@@ -164,7 +188,16 @@ def pearson(
     Analytic interval: Fisher's z, ``tanh(atanh(r) -/+ z / sqrt(N - 3))`` (Fisher RA.
     Biometrika 1915;10:507-521 (memory)), which treats segments as independent; default: subject
     cluster bootstrap. Validated against scipy.stats.pearsonr (r, p and its Fisher interval)
-    in tests/test_correlation.py.
+    in tests/stats/test_correlation.py.
+
+    Examples
+    --------
+    >>> ref = [10.1, 12.0, 9.8, 11.5, 13.2, 10.9, 12.4, 9.5, 11.1, 12.8]
+    >>> new = [10.6, 12.1, 10.5, 11.9, 13.0, 11.8, 12.9, 10.1, 11.3, 13.6]
+    >>> subj = ["a", "a", "b", "b", "c", "c", "d", "d", "e", "e"]
+    >>> r = pearson(ref, new, subject=subj, n_boot=200, seed=1)
+    >>> round(r.estimate, 3), r.df, f"{r.p_value:.1e}"
+    (0.966, 8.0, '5.7e-06')
     """
     return analyse(
         reference,
@@ -177,6 +210,7 @@ def pearson(
     )
 
 
+@accepts_data
 def spearman(
     reference: ArrayLike,
     test: ArrayLike,
@@ -193,7 +227,16 @@ def spearman(
     Spearman correlations. Psychometrika 2000;65:23-28 (memory). Bootstrap (an approximation, stated
     in the interval's method): each resample's Pearson r of the *full-sample* mid-ranks of
     its pairs, so that it is a function of per-subject sums; ranks are not recomputed within a
-    resample. Validated against scipy.stats.spearmanr in tests/test_correlation.py.
+    resample. Validated against scipy.stats.spearmanr in tests/stats/test_correlation.py.
+
+    Examples
+    --------
+    >>> ref = [10.1, 12.0, 9.8, 11.5, 13.2, 10.9, 12.4, 9.5, 11.1, 12.8]
+    >>> new = [10.6, 12.1, 10.5, 11.9, 13.0, 11.8, 12.9, 10.1, 11.3, 13.6]
+    >>> subj = ["a", "a", "b", "b", "c", "c", "d", "d", "e", "e"]
+    >>> rho = spearman(ref, new, subject=subj, n_boot=200, seed=1)
+    >>> round(rho.estimate, 3)
+    0.976
     """
     return analyse(
         reference,
@@ -206,6 +249,7 @@ def spearman(
     )
 
 
+@accepts_data
 def repeated_measures_correlation(
     reference: ArrayLike,
     test: ArrayLike,
@@ -226,7 +270,16 @@ def repeated_measures_correlation(
     Part 1 - correlation within subjects. BMJ 1995;310:446. Computed by centring in numpy
     (pingouin.rm_corr builds a dummy design that runs out of memory at 10,000 subjects).
     Validated against pingouin.rm_corr and the values of DOMAIN.md on pingouin's ``rm_corr``
-    dataset (tests/test_correlation.py).
+    dataset (tests/stats/test_correlation.py).
+
+    Examples
+    --------
+    >>> ref = [10.1, 12.0, 9.8, 11.5, 13.2, 10.9, 12.4, 9.5, 11.1, 12.8]
+    >>> new = [10.6, 12.1, 10.5, 11.9, 13.0, 11.8, 12.9, 10.1, 11.3, 13.6]
+    >>> subj = ["a", "a", "b", "b", "c", "c", "d", "d", "e", "e"]
+    >>> rm = repeated_measures_correlation(ref, new, subject=subj, n_boot=200, seed=1)
+    >>> round(rm.estimate, 3), rm.df
+    (0.961, 4.0)
     """
     return analyse(
         reference,

@@ -22,6 +22,12 @@ def wilson_interval(
     proportion: comparison of seven methods. Stat Med 1998;17:857-872 (method 3).
     Validated against Newcombe's Table I and ``statsmodels`` ``proportion_confint``.
     ``method`` is the label written into the interval (callers add their context).
+
+    Examples
+    --------
+    >>> ci = wilson_interval(8, 10)
+    >>> round(ci.low, 3), round(ci.high, 3)
+    (0.49, 0.943)
     """
     if not 0.0 < confidence_level < 1.0:
         raise ValueError(f"confidence_level must be in (0, 1), got {confidence_level!r}")

@@ -13,6 +13,8 @@ import math
 import warnings
 from dataclasses import dataclass
 
+import pandas as pd
+
 
 class CohortWarning(UserWarning):
     """Base class of the package's own warnings."""
@@ -115,3 +117,95 @@ class Result:
         shown = {n: v for n, v in values.items() if not (isinstance(v, str) and not v)}
         parts = [f"{n}={_short(v)}" for n, v in shown.items()]
         return f"{type(self).__name__}({', '.join(parts)})"
+
+
+@dataclass(frozen=True, repr=False)
+class Estimate(Result):
+    """A point estimate with its default (subject cluster bootstrap) and analytic intervals.
+
+    ``analytic_ci`` is the textbook interval where one exists (its ``method`` names it); it is
+    reported beside the bootstrap interval so a reader sees how much an interval that treats
+    segments as independent understates uncertainty.
+
+    Examples
+    --------
+    >>> ci = ConfidenceInterval(0.8, 1.4, 0.95, "subject cluster bootstrap")
+    >>> analytic = ConfidenceInterval(0.9, 1.3, 0.95, "t, k-1 df")
+    >>> e = Estimate("bias", 1.1, ci, analytic, n_subjects=12, n_pairs=204)
+    >>> e
+    Estimate(name='bias', estimate=1.1, ci=[0.8, 1.4], analytic_ci=[0.9, 1.3], n_subjects=12,
+    n_pairs=204)
+    >>> print(e.summary())  # doctest: +ELLIPSIS
+    quantity  estimate  ci_low  ci_high ...
+        bias       1.1     0.8      1.4 ...
+    """
+
+    name: str
+    estimate: float
+    ci: ConfidenceInterval
+    analytic_ci: ConfidenceInterval
+    n_subjects: int
+    n_pairs: int
+    note: str = ""
+
+    def to_frame(self) -> pd.DataFrame:
+        """One row: name, estimate, both intervals with their methods, counts, note."""
+        return pd.DataFrame([self.row()])
+
+    def row(self) -> dict[str, object]:
+        """The row of :meth:`to_frame` as a mapping (column name to value)."""
+        return {
+            "quantity": self.name,
+            "estimate": self.estimate,
+            "ci_low": self.ci.low,
+            "ci_high": self.ci.high,
+            "ci_method": self.ci.method,
+            "analytic_ci_low": self.analytic_ci.low,
+            "analytic_ci_high": self.analytic_ci.high,
+            "analytic_ci_method": self.analytic_ci.method,
+            "confidence_level": self.ci.level,
+            "n_subjects": self.n_subjects,
+            "n_pairs": self.n_pairs,
+            "note": _joined_notes(self.note, self.ci.note, self.analytic_ci.note),
+        }
+
+
+def _joined_notes(*notes: str) -> str:
+    """Distinct notes joined by "; ", leaving out one repeated inside another."""
+    kept = list(dict.fromkeys(n for n in notes if n))
+    return "; ".join(n for n in kept if not any(n != m and n in m for m in kept))
+
+
+def estimates_frame(estimates: tuple[Estimate, ...]) -> pd.DataFrame:
+    """Tidy frame of several estimates, one row each."""
+    return pd.DataFrame([e.row() for e in estimates])
+
+
+class SingleQuantity(Result):
+    """A result of one quantity: ``estimate`` (float), ``ci`` and ``analytic_ci`` directly.
+
+    Subclasses are dataclasses with the fields ``estimate``, ``ci``, ``analytic_ci``,
+    ``n_subjects``, ``n_pairs`` and ``note``, and name their quantity (``quantity``, the
+    column name of the agreement table, e.g. ``"ccc"``) and ``procedure``.
+    """
+
+    quantity: str
+    procedure: str
+
+    def as_estimate(self) -> Estimate:
+        """The quantity as an :class:`Estimate` named :attr:`quantity`."""
+        return Estimate(
+            self.quantity,
+            self.estimate,
+            self.ci,
+            self.analytic_ci,
+            self.n_subjects,
+            self.n_pairs,
+            self.note,
+        )
+
+    def to_frame(self) -> pd.DataFrame:
+        """One row: the procedure, then the columns of :meth:`Estimate.to_frame`."""
+        frame = self.as_estimate().to_frame()
+        frame.insert(0, "procedure", self.procedure)
+        return frame

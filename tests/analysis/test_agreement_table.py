@@ -178,25 +178,26 @@ def test_rows_equal_the_statistics_own_functions(
     means = subject_mean_limits(x, y, **options)
     expected.update({"subject_mean_loa_low": means.lower, "subject_mean_loa_high": means.upper})
     expected["prop_slope"] = proportional_bias(x, y, **options).slope
-    expected["pearson_r"] = pearson(x, y, **options).estimate
-    expected["spearman_rho"] = spearman(x, y, **options).estimate
-    expected["rm_corr"] = repeated_measures_correlation(x, y, **options).estimate
-    expected["ccc"] = concordance_correlation(x, y, **options).estimate
-    expected["icc"] = icc_agreement(x, y, **options).estimate
+    expected["pearson_r"] = pearson(x, y, **options)
+    expected["spearman_rho"] = spearman(x, y, **options)
+    expected["rm_corr"] = repeated_measures_correlation(x, y, **options)
+    expected["ccc"] = concordance_correlation(x, y, **options)
+    expected["icc"] = icc_agreement(x, y, **options)
     if parameter == "r2star":
         ratio = limits_of_agreement(x, y, scale="ratio", **options)
         expected.update({"ratio_bias": ratio.bias, "ratio_loa_high": ratio.upper})
     for name, estimate in expected.items():
+        # an Estimate or a single-quantity result: both have estimate, ci and analytic_ci
         assert row[name] == pytest.approx(estimate.estimate, rel=1e-12), name
         assert row[f"{name}_ci_low"] == pytest.approx(estimate.ci.low, rel=1e-12), name
         assert row[f"{name}_ci_high"] == pytest.approx(estimate.ci.high, rel=1e-12), name
         assert row[f"{name}_analytic_ci_low"] == pytest.approx(estimate.analytic_ci.low, rel=1e-12)
     pb = passing_bablok(x, y, **options)
     dm = deming(x, y, **options)
-    assert row["pb_slope"] == pytest.approx(pb.slope, rel=1e-12)
-    assert row["pb_slope_ci_high"] == pytest.approx(pb.slope_ci.high, rel=1e-12)
-    assert row["deming_intercept_ci_low"] == pytest.approx(dm.intercept_ci.low, rel=1e-12)
-    assert row["deming_ci_method"] == dm.slope_ci.method
+    assert row["pb_slope"] == pytest.approx(pb.slope.estimate, rel=1e-12)
+    assert row["pb_slope_ci_high"] == pytest.approx(pb.slope.ci.high, rel=1e-12)
+    assert row["deming_intercept_ci_low"] == pytest.approx(dm.intercept.ci.low, rel=1e-12)
+    assert row["deming_ci_method"] == dm.slope.ci.method
 
 
 def test_same_inputs_and_seed_give_an_identical_table(paired, table):
