@@ -60,6 +60,7 @@ SUBJECT_COLUMNS = (
 the finding's direction (the maximum for ``above``), at ``extreme_segment``."""
 
 NOTE_COLUMNS = ("finding", "method", "subject", "note")
+"""Columns of :attr:`FindingsResult.notes`."""
 
 Level = Literal["segment", "territory", "subject"]
 
@@ -94,6 +95,11 @@ class FindingsResult:
         if level not in tables:
             raise ValueError(f"level must be one of {list(tables)}, got {level!r}")
         return tables[level]
+
+
+def _note(definition: FindingDefinition, method: str, subject: str, text: str) -> dict:
+    """A row of :attr:`FindingsResult.notes` (columns :data:`NOTE_COLUMNS`)."""
+    return dict(zip(NOTE_COLUMNS, (definition.name, method, subject, text), strict=True))
 
 
 def _culprit(subjects: pd.DataFrame, definition: FindingDefinition) -> pd.Series:
@@ -145,16 +151,9 @@ def _remote_thresholds(
     if definition.remote_segments == OUTSIDE_CULPRIT:
         culprit = part["subject"].map(_culprit(subjects, definition)).fillna("")
         remote = culprit.eq("") | ~part["territory"].eq(culprit)
-        if culprit.eq("").any():
-            for subject in pd.unique(part.loc[culprit.eq(""), "subject"]):
-                notes.append(
-                    {
-                        "finding": definition.name,
-                        "method": "",
-                        "subject": subject,
-                        "note": "no culprit territory: all segments taken as remote",
-                    }
-                )
+        text = "no culprit territory: all segments taken as remote"
+        for subject in pd.unique(part.loc[culprit.eq(""), "subject"]):
+            notes.append(_note(definition, "", subject, text))
     else:
         remote = part["segment"].isin(definition.remote_segments)
     basis = pd.DataFrame({"subject": part["subject"], "method": part["method"], "x": compared}).loc[
@@ -172,13 +171,13 @@ def _remote_thresholds(
         lacking = part.loc[few, ["subject", "method"]].drop_duplicates()
         for subject, method in lacking.itertuples(index=False):
             notes.append(
-                {
-                    "finding": definition.name,
-                    "method": method,
-                    "subject": subject,
-                    "note": "remote threshold not estimable: fewer than 2 remote segments; "
+                _note(
+                    definition,
+                    method,
+                    subject,
+                    "remote threshold not estimable: fewer than 2 remote segments; "
                     "segments unclassified",
-                }
+                )
             )
         warn_not_estimable(
             f"remote threshold of finding {definition.name!r}",
@@ -210,7 +209,25 @@ def classify_segments(
     definition: FindingDefinition,
     notes: list[dict] | None = None,
 ) -> pd.DataFrame:
-    """Segment rows of one finding (columns :data:`SEGMENT_COLUMNS`), all methods."""
+    """Segment rows of one finding (columns :data:`SEGMENT_COLUMNS`), all methods.
+
+    ``notes`` (if given) receives the rows of :attr:`FindingsResult.notes`.
+
+    Examples
+    --------
+    Fat fraction at or above 10 % (common practice):
+
+    >>> from cohort.domain.thresholds import FAT
+    >>> values = pd.DataFrame({
+    ...     "subject": "a", "method": "ref", "segment": [1, 2], "parameter": "ff",
+    ...     "value": [10.0, 3.0], "group": "all", "field_strength": 1.5,
+    ...     "segment_name": "", "ring": "", "territory": ""})
+    >>> rows = classify_segments(values, pd.DataFrame({"subject": ["a"]}), FAT)
+    >>> print(rows[["segment", "threshold", "positive"]].to_string(index=False))
+     segment  threshold  positive
+           1       10.0      True
+           2       10.0     False
+    """
     notes = [] if notes is None else notes
     missing = [c for c in _VALUE_COLUMNS if c not in values.columns]
     if missing:
@@ -220,14 +237,8 @@ def classify_segments(
     part["value"] = part["value"].astype(float)
     compared = _compared(part["value"], definition)
     if part.empty:
-        notes.append(
-            {
-                "finding": definition.name,
-                "method": "",
-                "subject": "",
-                "note": f"no values of parameter {definition.parameter!r}: finding not evaluated",
-            }
-        )
+        text = f"no values of parameter {definition.parameter!r}: finding not evaluated"
+        notes.append(_note(definition, "", "", text))
         part["threshold"] = pd.Series(dtype=float)
         part["derived"] = pd.Series(dtype=bool)
     elif definition.kind == "absolute":
@@ -259,7 +270,19 @@ def summarise(
     """Territory or subject rows from segment rows (columns as :data:`SEGMENT_COLUMNS`).
 
     Vectorised group-by; used for each method's own segments here and for the segments both
-    methods measured in :mod:`cohort.analysis.detection`.
+    methods measured in :mod:`cohort.analysis.finding_agreement`.
+
+    Examples
+    --------
+    >>> from cohort.domain.thresholds import FAT
+    >>> values = pd.DataFrame({
+    ...     "subject": "a", "method": "ref", "segment": [1, 2, 3], "parameter": "ff",
+    ...     "value": [12.0, 3.0, 15.0], "group": "all", "field_strength": 1.5,
+    ...     "segment_name": "", "ring": "", "territory": ["LAD", "LAD", "RCA"]})
+    >>> rows = classify_segments(values, pd.DataFrame({"subject": ["a"]}), FAT)
+    >>> subject = summarise(rows, (FAT,), "subject").iloc[0]
+    >>> print(subject["n_positive"], subject["positive_segments"], subject["extreme_value"])
+    2 1, 3 15.0
     """
     if level not in ("territory", "subject"):
         raise ValueError(f"level must be 'territory' or 'subject', got {level!r}")
@@ -319,6 +342,21 @@ def evaluate_findings(
 
     Remote thresholds are ``mean +/- k SD`` (``ddof=1``) of the method's own remote segments
     per subject; validated against direct numpy computation in the tests.
+
+    Examples
+    --------
+    Hemorrhage: R2* above 50 1/s at 1.5 T (common practice); two methods, one subject.
+
+    >>> from cohort.domain.thresholds import HEMORRHAGE
+    >>> values = pd.DataFrame({
+    ...     "subject": "a", "method": ["ref", "ref", "new", "new"], "segment": [1, 2, 1, 2],
+    ...     "parameter": "r2star", "value": [80.0, 30.0, 45.0, 31.0], "group": "all",
+    ...     "field_strength": 1.5, "segment_name": "", "ring": "", "territory": "LAD"})
+    >>> found = evaluate_findings(values, pd.DataFrame({"subject": ["a"]}), (HEMORRHAGE,))
+    >>> print(found.subjects[["method", "n_positive", "positive"]].to_string(index=False))
+    method  n_positive  positive
+       ref           1      True
+       new           0     False
     """
     definitions = DEFAULT_FINDINGS if definitions is None else tuple(definitions)
     names = [d.name for d in definitions]

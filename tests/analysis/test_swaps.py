@@ -17,7 +17,8 @@ from cohort.analysis.swaps import (
     swap_screen_with,
 )
 from cohort.demo import write_demo
-from cohort.domain.thresholds import MAGNITUDE_ONLY_FF_LIMIT, parse_swap_options
+from cohort.domain.thresholds import MAGNITUDE_ONLY_FF_LIMIT
+from cohort.io.findings_table import parse_swap_options
 from cohort.io.study import load_study
 
 
