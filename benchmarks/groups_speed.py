@@ -4,10 +4,10 @@ Cohort (invented demo, cohort.demo.make_demo): 10,000 subjects x 17 segments x 2
 (reference and one test method) x 3 parameters = 1,020,000 values, three groups. The
 study tables are built from the demo in memory in the layout of ``Study.values``,
 ``Study.subjects`` and ``Study.paired`` (field referenced to the subject median, as the
-loader does), so only cohort.analysis.groups is timed. Findings for the timing (benchmark
-definitions, not study defaults): hemorrhage = R2* > 50 1/s at 1.5 T or > 79 1/s at 3 T
-(O'Regan 2009; Storey 2007 scaling, see DOMAIN.md), and |field| > 20 Hz, per segment; a
-subject is positive when any segment is.
+loader does), so only the group comparison (cohort.analysis.group_comparison) is timed.
+Findings for the timing (benchmark definitions, not study defaults): hemorrhage = R2* > 50
+1/s at 1.5 T or > 79 1/s at 3 T (O'Regan 2009; Storey 2007 scaling, see DOMAIN.md), and
+|field| > 20 Hz, per segment; a subject is positive when any segment is.
 
 Timed: ``group_comparison_table`` with per-subject summaries, descriptives, Kruskal-Wallis
 + Mann-Whitney + Cliff's delta, Welch ANOVA + Games-Howell + Hedges' g, Fisher tests of
@@ -33,9 +33,11 @@ import pandas as pd
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-from cohort.analysis import groups
+from cohort.analysis.group_comparison import group_comparison_table
+from cohort.analysis.group_tables import ALL_GROUPS
 from cohort.demo import REFERENCE, make_demo
 from cohort.domain.segments import SEGMENTS
+from cohort.stats.models import GEE_PATH, JOINT_GROUP, MIXED_PATH
 
 
 def study_frames(n_subjects: int, seed: int = 20261202):
@@ -81,7 +83,7 @@ def run(values, subjects, paired, segment, subject, **options):
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")  # not-estimable rows carry their notes
         start = time.perf_counter()
-        result = groups.group_comparison_table(
+        result = group_comparison_table(
             values,
             subjects,
             ("control", "acute", "chronic"),
@@ -114,10 +116,10 @@ def main() -> None:
           f"{len(times)} run(s) (target well under 60 s)")  # fmt: skip
     print(f"  linear-model path: {result.model_path}")
     tests = result.proportion_tests
-    for row in tests[tests["comparison"].eq(groups.ALL_GROUPS)].itertuples():
+    for row in tests[tests["comparison"].eq(ALL_GROUPS)].itertuples():
         print(f"  proportions {row.method} / {row.finding}: {row.p_method}")
-    gee = result.models[result.models["path"].eq(groups.GEE_PATH)]
-    joint = gee[gee["term"].eq(groups.JOINT_GROUP)]
+    gee = result.models[result.models["path"].eq(GEE_PATH)]
+    joint = gee[gee["term"].eq(JOINT_GROUP)]
     print(f"  GEE fits: {len(joint)}, estimable {int(joint['p_value'].notna().sum())} "
           "(the others: separation, see their notes)")  # fmt: skip
     print(f"  rows: comparisons {len(result.comparisons)}, models {len(result.models)}, "
@@ -126,7 +128,7 @@ def main() -> None:
     small = study_frames(args.mixed_subjects)
     seg_small, subj_small = findings(small[0])
     elapsed, result = run(*small, seg_small, subj_small, model_path="mixed")
-    n_fits = int(result.models["path"].eq(groups.MIXED_PATH).groupby(
+    n_fits = int(result.models["path"].eq(MIXED_PATH).groupby(
         [result.models["parameter"], result.models["method"], result.models["model"]]
     ).any().sum())  # fmt: skip
     print(f"mixed-model path at {args.mixed_subjects:,} subjects: {elapsed:.1f} s for the whole "

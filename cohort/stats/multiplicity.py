@@ -11,13 +11,18 @@ towards the size of their family.
   approach to multiple testing. J R Stat Soc B 1995;57:289-300: controls the false
   discovery rate under independence or positive dependence.
 
-Both return adjusted p-values: reject a hypothesis at level ``alpha`` when its adjusted
-p-value is at most ``alpha``. Validated against
+Families are keys as data (:func:`adjust_within_families`): rows are grouped by their key,
+never by the wording a table shows for it.
+
+Both corrections return adjusted p-values: reject a hypothesis at level ``alpha`` when its
+adjusted p-value is at most ``alpha``. Validated against
 ``statsmodels.stats.multitest.multipletests(method='holm' / 'fdr_bh')`` and the 15 p-values
 example of Benjamini & Hochberg (1995).
 """
 
 from __future__ import annotations
+
+from collections.abc import Hashable, Sequence
 
 import numpy as np
 import pandas as pd
@@ -105,6 +110,45 @@ def adjust_p(p_values: ArrayLike, method: str = HOLM) -> np.ndarray:
     return p.copy()
 
 
+def adjust_within_families(
+    p_values: ArrayLike,
+    families: Sequence[Hashable],
+    method: str = HOLM,
+    *,
+    rows: ArrayLike | None = None,
+) -> np.ndarray:
+    """Adjusted p-values, each corrected only together with the p-values of its own family.
+
+    ``families`` holds one key per p-value: any hashable value that identifies the family as
+    data (a tuple such as ``(test, parameter, method)``, a frozen dataclass), never its
+    display wording. Keys are compared by equality, so two families never mix unless their
+    keys are equal. ``rows`` (boolean, one per p-value) restricts the correction to some
+    p-values; the others come back NaN.
+
+    Examples
+    --------
+    >>> p = [0.01, 0.04, 0.01, 0.02, 0.03]
+    >>> keys = [("KW", "mean"), ("KW", "mean"), ("KW", "max"), ("KW", "max"), ("KW", "max")]
+    >>> [round(float(v), 3) for v in adjust_within_families(p, keys, HOLM)]
+    [0.02, 0.04, 0.03, 0.04, 0.04]
+    """
+    method = check_correction(method)
+    p, _ = _finite_p(p_values)
+    keys = list(families)
+    if len(keys) != p.size:
+        raise ValueError(f"families must hold one key per p-value ({p.size}), got {len(keys)}")
+    mask = np.ones(p.size, dtype=bool) if rows is None else np.asarray(rows, dtype=bool)
+    if mask.shape != p.shape:
+        raise ValueError(f"rows must hold one boolean per row ({p.size}), got {mask.shape}")
+    members: dict[Hashable, list[int]] = {}
+    for i in np.flatnonzero(mask):
+        members.setdefault(keys[i], []).append(int(i))
+    out = np.full(p.shape, np.nan)
+    for index in members.values():
+        out[index] = adjust_p(p[index], method)
+    return out
+
+
 def adjust_table(
     table: pd.DataFrame,
     *,
@@ -116,9 +160,16 @@ def adjust_table(
 ) -> pd.DataFrame:
     """A copy of ``table`` with ``p_adjusted`` computed within each level of ``family``.
 
-    ``rows`` (boolean, one per row) restricts the correction to some rows; the others keep
-    whatever ``p_adjusted`` they had (NaN when the column is new). Re-running with another
+    The ``family`` column holds the family keys (:func:`adjust_within_families`). ``rows``
+    (boolean, one per row) restricts the correction to some rows; the others keep whatever
+    ``p_adjusted`` they had (NaN when the column is new). Re-running with another
     ``family`` column corrects over another family, e.g. every test of a table at once.
+
+    Examples
+    --------
+    >>> table = pd.DataFrame({"family": ["a", "a", "b"], "p_value": [0.01, 0.04, 0.03]})
+    >>> adjust_table(table)["p_adjusted"].round(3).tolist()
+    [0.02, 0.04, 0.03]
     """
     method = check_correction(method)
     for name in (family, p_value):
@@ -134,9 +185,7 @@ def adjust_table(
         else np.full(len(out), np.nan)
     )
     p = out[p_value].to_numpy(dtype=float)
-    labels = out[family].to_numpy()
-    for label in pd.unique(labels[mask]):
-        members = mask & (labels == label)
-        adjusted[members] = adjust_p(p[members], method)
+    within = adjust_within_families(p, out[family].tolist(), method, rows=mask)
+    adjusted[mask] = within[mask]
     out[p_adjusted] = adjusted
     return out
