@@ -7,18 +7,21 @@ traceback), 1 on an unexpected internal failure.
 from __future__ import annotations
 
 import argparse
-import os
 import signal
 import sys
 import warnings
 from collections.abc import Sequence
 from pathlib import Path
 
+from cohort.demo import DEMO_SEED, DEMO_SUBJECTS
 from cohort.domain.cautions import CAUTION
+from cohort.domain.options import DEFAULT_N_BOOT, FIELD_REFERENCING
 from cohort.domain.problems import StudyError, format_problems
+from cohort.domain.segments import MODELS
+from cohort.domain.units import FF_UNITS, FIELD_UNITS
 from cohort.io.settings import StudySettings, build_settings, read_study_file
-from cohort.io.study import load_study
-from cohort.report.destination import OutputFolderError, ReservedFile, check_destination
+from cohort.io.study import check_study
+from cohort.report.destination import OutputFolderError
 
 
 def _add_study_arguments(parser: argparse.ArgumentParser) -> None:
@@ -28,12 +31,10 @@ def _add_study_arguments(parser: argparse.ArgumentParser) -> None:
     flags.add_argument("--subjects", help="subjects table (CSV, TSV, XLSX or Parquet)")
     flags.add_argument("--reference", help="name of the reference method")
     flags.add_argument("--groups", help="comma-separated group names, in display order")
-    flags.add_argument("--segment-model", default=None, choices=("aha17", "aha16"))
-    flags.add_argument("--ff-unit", default=None, choices=("percent", "fraction"))
-    flags.add_argument("--field-unit", default=None, choices=("Hz", "ppm"))
-    flags.add_argument(
-        "--field-referencing", default=None, choices=("none", "subject-median", "remote")
-    )
+    flags.add_argument("--segment-model", default=None, choices=tuple(MODELS))
+    flags.add_argument("--ff-unit", default=None, choices=FF_UNITS)
+    flags.add_argument("--field-unit", default=None, choices=FIELD_UNITS)
+    flags.add_argument("--field-referencing", default=None, choices=FIELD_REFERENCING)
     flags.add_argument("--remote-segments", help="comma-separated segment numbers")
 
 
@@ -69,88 +70,37 @@ def settings_from_args(args: argparse.Namespace) -> StudySettings:
 
 
 def cmd_check(args: argparse.Namespace) -> int:
-    settings = settings_from_args(args)
-    study = load_study(settings)
+    study = check_study(settings_from_args(args))
     print(study.summary())
     print(f"\nThe study is usable. {CAUTION}")
     return 0
 
 
-def _input_paths(settings: StudySettings, *extra: str | None) -> list[Path]:
-    """Every file a run reads: none of them may be written or sit inside ``--out``."""
-    paths = [settings.values, settings.subjects, settings.study_file, *extra]
-    return [Path(p) for p in paths if p]
-
-
-def _is_code_list(path: Path) -> bool:
-    """Whether ``path`` is a code list written by ``cohort run --pseudonymize`` (its header
-    is exactly :data:`cohort.io.pseudonyms.CODE_LIST_COLUMNS`): the only kind of existing file
-    that a new code list may replace."""
-    from cohort.io.pseudonyms import CODE_LIST_COLUMNS
-
-    try:
-        with path.open(encoding="utf-8") as handle:
-            header = tuple(handle.readline().rstrip("\r\n").split(","))
-    except (OSError, UnicodeDecodeError):
-        return False
-    return header == tuple(CODE_LIST_COLUMNS)
-
-
-def _reserve_code_list(args: argparse.Namespace, inputs: list[Path]) -> ReservedFile:
-    """Where the code list goes, checked and reserved before the analysis: outside
-    ``--out``, not an input, replacing nothing but an earlier code list."""
-    out = Path(os.path.abspath(args.out))
-    path = Path(os.path.abspath(args.code_list or out.with_name(f"{out.name}-pseudonym-codes.csv")))
-    real = Path(os.path.realpath(path))
-    if Path(os.path.realpath(out)) in (real, *real.parents):
-        raise OutputFolderError("--code-list must be outside the output folder")
-    if any(Path(os.path.realpath(p)) == real for p in inputs):
-        raise OutputFolderError(f"--code-list {str(path)!r} is an input file; give a new file")
-    return ReservedFile(path, _is_code_list, "--code-list")
-
-
 def cmd_run(args: argparse.Namespace) -> int:
-    from cohort.analysis.pipeline import options_from_study
-    from cohort.report.runner import run
+    from cohort.report.study_run import run_study
 
-    settings = settings_from_args(args)
-    inputs = _input_paths(settings, args.key_file)
-    check_destination(args.out, inputs, force=args.force)  # before any work
-    code_list = _reserve_code_list(args, inputs) if args.pseudonymize else None
-    try:
-        study = load_study(settings)
-        if args.pseudonymize:
-            from cohort.io.pseudonyms import load_key, pseudonymize_study
+    def progress(message: str) -> None:
+        if not args.quiet:
+            print(f"[cohort] {message} ...", file=sys.stderr, flush=True)
 
-            study, codes = pseudonymize_study(study, load_key(args.key_file))
-        options = options_from_study(
-            study,
-            seed=args.seed,
-            n_boot=args.bootstrap,
-            figures=False if args.no_figures else None,
-            workers=args.workers,
-        )
-
-        def progress(message: str) -> None:
-            if not args.quiet:
-                print(f"[cohort] {message} ...", file=sys.stderr, flush=True)
-
-        summary = run(
-            study,
-            args.out,
-            options,
-            force=args.force,
-            progress=progress,
-            pseudonymized=args.pseudonymize,
-            protect=inputs,
-        )
-        if code_list is not None:
-            path = code_list.commit(lambda temporary: codes.to_csv(temporary, index=False))
-            print(f"  pseudonym code list (keep it apart from the report): {path}")
-    finally:
-        if code_list is not None:
-            code_list.discard()
-    print(summary.text())
+    done = run_study(
+        settings_from_args(args),
+        args.out,
+        {
+            "seed": args.seed,
+            "n_boot": args.bootstrap,
+            "figures": False if args.no_figures else None,
+            "workers": args.workers,
+        },
+        force=args.force,
+        progress=progress,
+        pseudonymize=args.pseudonymize,
+        key_file=args.key_file,
+        code_list=args.code_list,
+    )
+    if done.code_list is not None:
+        print(f"  pseudonym code list (keep it apart from the report): {done.code_list}")
+    print(done.summary.text())
     print(f"\n{CAUTION}")
     return 0
 
@@ -171,19 +121,14 @@ def cmd_demo(args: argparse.Namespace) -> int:
     return 0
 
 
-DEMO_SUBJECTS = (6, 100_000)
-"""Sizes of the demo cohort: at least two subjects per group, at most what the scale
-benchmark uses."""
-
-
 def _demo_size(text: str) -> int:
     try:
         n = int(text)
     except ValueError:
         raise argparse.ArgumentTypeError(f"not a whole number: {text!r}") from None
-    if not DEMO_SUBJECTS[0] <= n <= DEMO_SUBJECTS[1]:
+    if not DEMO_SUBJECTS.low <= n <= DEMO_SUBJECTS.high:
         raise argparse.ArgumentTypeError(
-            f"{n} is outside {DEMO_SUBJECTS[0]} to {DEMO_SUBJECTS[1]:,} subjects"
+            f"{n} is outside {DEMO_SUBJECTS.low} to {DEMO_SUBJECTS.high:,} subjects"
         )
     return n
 
@@ -210,7 +155,7 @@ def build_parser() -> argparse.ArgumentParser:
         type=int,
         default=None,
         metavar="B",
-        help="bootstrap resamples (default 2000)",
+        help=f"bootstrap resamples (default {DEFAULT_N_BOOT})",
     )
     run.add_argument("--no-figures", action="store_true", help="tables, methods and manifest only")
     run.add_argument(
@@ -244,10 +189,10 @@ def build_parser() -> argparse.ArgumentParser:
     demo.add_argument(
         "--subjects",
         type=_demo_size,
-        default=48,
-        help=f"subjects of the invented cohort ({DEMO_SUBJECTS[0]} to {DEMO_SUBJECTS[1]:,})",
+        default=DEMO_SUBJECTS.default,
+        help=f"subjects of the invented cohort ({DEMO_SUBJECTS.low} to {DEMO_SUBJECTS.high:,})",
     )
-    demo.add_argument("--seed", type=int, default=20261202)
+    demo.add_argument("--seed", type=int, default=DEMO_SEED)
     demo.add_argument(
         "--force", action="store_true", help="write again over an earlier demo (nothing else)"
     )

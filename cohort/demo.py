@@ -26,6 +26,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 from pathlib import Path
+from typing import NamedTuple
 
 import numpy as np
 import pandas as pd
@@ -37,6 +38,19 @@ TEST = "quickmap"
 GROUPS = ("control", "acute", "chronic")
 FF_BIAS, FF_SLOPE = 0.5, 1.05
 R2_KNEE_15T, R2_KEEP = 45.0, 0.35
+
+
+class DemoSize(NamedTuple):
+    low: int
+    high: int
+    default: int
+
+
+DEMO_SUBJECTS = DemoSize(6, 100_000, 48)
+"""Sizes of the demo cohort: at least two subjects per group, at most what the scale
+benchmark uses; 48 unless asked."""
+DEMO_SEED = 20261202
+"""Seed of the demo cohort unless asked (the date of this version)."""
 
 _TERRITORY_SEGMENTS = {
     t: np.array([n for n, s in SEGMENTS.items() if s.territory == t]) for t in ("LAD", "RCA", "LCx")
@@ -56,9 +70,53 @@ class DemoCohort:
     """Planted lesions: subject, segment, kind (hemorrhage or fat)."""
 
 
-def make_demo(n_subjects: int = 48, seed: int = 20261202) -> DemoCohort:
-    """Generate the invented cohort (vectorised: 100,000 subjects take seconds)."""
-    rng = np.random.default_rng(seed)
+def make_demo(n_subjects: int = DEMO_SUBJECTS.default, seed: int = DEMO_SEED) -> DemoCohort:
+    """Generate the invented cohort (vectorised: 100,000 subjects take seconds).
+
+    Examples
+    --------
+    >>> demo = make_demo(6)
+    >>> len(demo.subjects), len(demo.values), sorted(set(demo.lesions["kind"]))
+    (6, 612, ['fat', 'hemorrhage'])
+    """
+    rng = np.random.default_rng(seed)  # every draw below in a fixed order: same seed, same cohort
+    subjects = _subjects(rng, n_subjects)
+    group = subjects["group"].to_numpy()
+    subj_idx = np.repeat(np.arange(n_subjects), len(SEGMENTS))
+    segment = np.tile(np.arange(1, len(SEGMENTS) + 1), n_subjects)
+    lesion = _plant_lesions(rng, group, subjects["culprit_territory"].to_numpy())
+    hem = lesion & (group[subj_idx] == "acute")
+    fat = lesion & (group[subj_idx] == "chronic")
+    field_s = subjects["field_strength"].to_numpy()[subj_idx]
+    ids = subjects["subject"].to_numpy()
+    reference, test = _measured(
+        rng, _truth(rng, segment, field_s, subj_idx, hem, fat), field_s, subj_idx
+    )
+    values = pd.concat(
+        [
+            _long(ids[subj_idx], segment, REFERENCE, reference),
+            _long(ids[subj_idx], segment, TEST, test),
+        ],
+        ignore_index=True,
+    )
+    values["value"] = values["value"].astype(object)
+    # Series.isin hashes; np.isin on text compares pair by pair (minutes at 100,000 subjects)
+    no_apex = (
+        values["subject"].isin(ids[::8]) & values["method"].eq(TEST) & values["segment"].eq(17)
+    )
+    values.loc[no_apex, "value"] = ""
+    lesions = pd.DataFrame(
+        {
+            "subject": ids[subj_idx[lesion]],
+            "segment": segment[lesion],
+            "kind": np.where(hem[lesion], "hemorrhage", "fat"),
+        }
+    )
+    return DemoCohort(values, subjects, lesions)
+
+
+def _subjects(rng: np.random.Generator, n_subjects: int) -> pd.DataFrame:
+    """The subjects table: groups in turn, field strength, culprit territory, covariates."""
     width = max(3, len(str(n_subjects)))
     ids = np.array([f"HV{str(i + 1).zfill(width)}" for i in range(n_subjects)])
     group = np.array(GROUPS)[np.arange(n_subjects) % 3]
@@ -81,24 +139,32 @@ def make_demo(n_subjects: int = 48, seed: int = 20261202) -> DemoCohort:
     )
     subjects["days_since_infarction"] = subjects["days_since_infarction"].astype(object)
     subjects.loc[group == "control", "days_since_infarction"] = ""
+    return subjects
 
-    seg = np.arange(1, 18)
-    S = len(seg)
-    subj_idx = np.repeat(np.arange(n_subjects), S)
-    segment = np.tile(seg, n_subjects)
-    field_s = b0[subj_idx]
-    inferolateral = np.isin(segment, (5, 11))
 
-    # lesions: 1-4 segments of the culprit territory per patient
-    lesion = np.zeros(n_subjects * S, dtype=bool)
+def _plant_lesions(rng: np.random.Generator, group: np.ndarray, culprit: np.ndarray) -> np.ndarray:
+    """Lesion mask per (subject, segment): 1-4 segments of the culprit territory per patient."""
+    n_segments = len(SEGMENTS)
+    lesion = np.zeros(len(group) * n_segments, dtype=bool)
     for i in np.flatnonzero(group != "control"):
         segs = _TERRITORY_SEGMENTS[culprit[i]]
         chosen = rng.choice(segs, size=rng.integers(1, 5), replace=False)
-        lesion[i * S + chosen - 1] = True
-    hem = lesion & (group[subj_idx] == "acute")
-    fat = lesion & (group[subj_idx] == "chronic")
+        lesion[i * n_segments + chosen - 1] = True
+    return lesion
 
-    n = n_subjects * S
+
+def _truth(
+    rng: np.random.Generator,
+    segment: np.ndarray,
+    field_s: np.ndarray,
+    subj_idx: np.ndarray,
+    hem: np.ndarray,
+    fat: np.ndarray,
+) -> dict[str, np.ndarray]:
+    """True fat fraction, R2* and field per (subject, segment), and each acquisition's
+    arbitrary field offset (``offset``: one row per method)."""
+    n, n_subjects = len(segment), int(subj_idx.max(initial=-1)) + 1
+    inferolateral = np.isin(segment, (5, 11))
     ff_true = np.clip(rng.normal(0.8, 0.5, n), 0.0, None)
     ff_true[fat] = rng.uniform(8.0, 25.0, fat.sum())
     r2_15 = (
@@ -106,54 +172,60 @@ def make_demo(n_subjects: int = 48, seed: int = 20261202) -> DemoCohort:
     )
     r2_15 = np.maximum(r2_15, 12.0)  # physiological floor (T2* about 83 ms)
     r2_15[hem] = rng.uniform(52.0, 75.0, hem.sum())
-    r2_true = r2star_at(field_s, r2_15)
     offset = rng.uniform(-40.0, 40.0, (2, n_subjects))  # per acquisition, per method
     field_true = 12.0 * np.sin(np.deg2rad(segment * 21.0)) + 15.0 * inferolateral + 8.0 * hem
-    field_true = field_true * (field_s / 1.5)
+    return {
+        "ff": ff_true,
+        "r2star": r2star_at(field_s, r2_15),
+        "field": field_true * (field_s / 1.5),
+        "offset": offset,
+    }
 
-    ref_ff = ff_true + rng.normal(0, 0.5, n)
-    test_ff = FF_BIAS + FF_SLOPE * ff_true + rng.normal(0, 0.8, n)
-    ref_r2 = np.maximum(r2_true + rng.normal(0, 2.0, n), 0.0)  # fits constrain R2* >= 0
+
+def _measured(
+    rng: np.random.Generator,
+    truth: dict[str, np.ndarray],
+    field_s: np.ndarray,
+    subj_idx: np.ndarray,
+) -> tuple[dict[str, np.ndarray], dict[str, np.ndarray]]:
+    """What each method reads (reference, quickmap): the truth with noise, quickmap's fat
+    fraction biased and its R2* compressed above the knee; each acquisition's field offset.
+    The draws alternate between the methods in this order (the cohort of a seed depends on
+    it)."""
+    n = len(subj_idx)
+    ref_ff = truth["ff"] + rng.normal(0, 0.5, n)
+    test_ff = FF_BIAS + FF_SLOPE * truth["ff"] + rng.normal(0, 0.8, n)
+    ref_r2 = np.maximum(truth["r2star"] + rng.normal(0, 2.0, n), 0.0)  # fits constrain R2* >= 0
     knee = r2star_at(field_s, np.full(n, R2_KNEE_15T))
+    r2_true = truth["r2star"]
     test_r2 = np.where(r2_true > knee, knee + R2_KEEP * (r2_true - knee), r2_true)
     test_r2 = np.maximum(test_r2 + rng.normal(0, 3.0, n), 0.0)
-    ref_field = field_true + offset[0, subj_idx] + rng.normal(0, 1.0, n)
-    test_field = field_true + offset[1, subj_idx] + rng.normal(0, 2.0, n)
+    offset = truth["offset"]
+    ref_field = truth["field"] + offset[0, subj_idx] + rng.normal(0, 1.0, n)
+    test_field = truth["field"] + offset[1, subj_idx] + rng.normal(0, 2.0, n)
+    return (
+        {"ff": ref_ff, "r2star": ref_r2, "field": ref_field},
+        {"ff": test_ff, "r2star": test_r2, "field": test_field},
+    )
 
-    def long(method: str, ff: np.ndarray, r2: np.ndarray, fld: np.ndarray) -> pd.DataFrame:
-        parts = []
-        for parameter, values in (("ff", ff), ("r2star", r2), ("field", fld)):
-            parts.append(
-                pd.DataFrame(
-                    {
-                        "subject": ids[subj_idx],
-                        "method": method,
-                        "segment": segment,
-                        "parameter": parameter,
-                        "value": np.round(values, 2),
-                    }
-                )
-            )
-        return pd.concat(parts, ignore_index=True)
 
-    values = pd.concat(
-        [long(REFERENCE, ref_ff, ref_r2, ref_field), long(TEST, test_ff, test_r2, test_field)],
-        ignore_index=True,
-    )
-    values["value"] = values["value"].astype(object)
-    # Series.isin hashes; np.isin on text compares pair by pair (minutes at 100,000 subjects)
-    no_apex = (
-        values["subject"].isin(ids[::8]) & values["method"].eq(TEST) & values["segment"].eq(17)
-    )
-    values.loc[no_apex, "value"] = ""
-    lesions = pd.DataFrame(
-        {
-            "subject": ids[subj_idx[lesion]],
-            "segment": segment[lesion],
-            "kind": np.where(hem[lesion], "hemorrhage", "fat"),
-        }
-    )
-    return DemoCohort(values, subjects, lesions)
+def _long(
+    subject: np.ndarray, segment: np.ndarray, method: str, values: dict[str, np.ndarray]
+) -> pd.DataFrame:
+    """One method's values as long rows (ff, r2star, field), rounded to 2 decimals."""
+    parts = [
+        pd.DataFrame(
+            {
+                "subject": subject,
+                "method": method,
+                "segment": segment,
+                "parameter": parameter,
+                "value": np.round(values[parameter], 2),
+            }
+        )
+        for parameter in ("ff", "r2star", "field")
+    ]
+    return pd.concat(parts, ignore_index=True)
 
 
 STUDY_TOML = """\
@@ -198,7 +270,9 @@ def is_demo_folder(folder: str | Path) -> bool:
     )
 
 
-def write_demo(folder: str | Path, n_subjects: int = 48, seed: int = 20261202) -> Path:
+def write_demo(
+    folder: str | Path, n_subjects: int = DEMO_SUBJECTS.default, seed: int = DEMO_SEED
+) -> Path:
     """Write the demo cohort (values.csv, subjects.csv, planted_lesions.csv, study.toml) to
     ``folder``: a new or empty folder, or one holding an earlier demo (:func:`is_demo_folder`);
     anything else raises :class:`~cohort.report.destination.OutputExistsError`."""

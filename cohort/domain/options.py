@@ -1,22 +1,15 @@
-"""Rules of the study file as data, and the analysis options of its ``[analysis]`` table.
+"""Rules of the study file as data: every key of every table, its type, range and default.
 
-Low level on purpose (no analysis modules are imported): :mod:`cohort.io.settings` (the input
-edge) checks every table of a study file with the machinery here, and
-:mod:`cohort.analysis.pipeline` re-exports :class:`RunOptions` and :func:`options_from_study`.
+The tables and their keys (the ``[findings]`` table's rules are in
+:mod:`cohort.domain.thresholds`; the machinery that applies rules is :mod:`cohort.domain.rules`;
+:mod:`cohort.io.settings` reads a study file with them, once)::
 
-The machinery
--------------
-A :class:`Rule` says what one value must be (its ``expected`` text and a test); a
-:class:`TableSchema` lists the keys of one table with their rules, the keys that are
-required, keys that are known but not configurable, named sub-tables (``[findings.<name>]``)
-and a hook for rules that relate several keys. :func:`check_document` checks a whole study
-file against a mapping of table name -> schema and returns every problem (code
-``study-option``); unknown tables and keys get a did-you-mean hint
-(:func:`difflib.get_close_matches`). A table added later is covered by adding its schema.
-
-Value rules shared by every table: TOML booleans are never numbers (``bool`` is an ``int``
-subclass in Python); integers must be TOML integers (``2000.0`` is refused, like
-``2000.5``); numbers must be finite (TOML allows ``nan`` and ``inf``).
+    [study]     title, values, subjects, reference, segment_model, groups, group_labels,
+                identifying_columns                  STUDY_RULES
+    [units]     ff, field                            UNITS_RULES
+    [field]     referencing, remote_segments         FIELD_RULES
+    [checks]    plausibility limits                  CHECK_RULES, Checks
+    [analysis]  analysis options                     ANALYSIS_RULES, RunOptions
 
 The ``[analysis]`` table (all keys optional)::
 
@@ -36,356 +29,181 @@ The ``[analysis]`` table (all keys optional)::
     workers = 0                # processes (0 = one per core, at most 4); results unchanged
 
 Command-line options (``--seed``, ``--bootstrap``, ``--workers``) override the study file
-and obey the same rules.
+and obey the same rules (:func:`override_options`).
 """
 
 from __future__ import annotations
 
-import difflib
-import math
-import numbers
-from collections.abc import Callable, Mapping
-from dataclasses import asdict, dataclass, field, replace
+from collections.abc import Mapping
+from dataclasses import asdict, dataclass, replace
 from types import MappingProxyType
-from typing import TYPE_CHECKING, Any
+from typing import Any
 
 from cohort.domain.problems import Problem, StudyError
-from cohort.domain.units import PARAMETERS
+from cohort.domain.rules import (
+    Rule,
+    TableSchema,
+    check_value,
+    choice,
+    did_you_mean,
+    flag,
+    integer,
+    integers,
+    is_integer,
+    labels,
+    number,
+    study_problem,
+    text,
+    texts,
+)
+from cohort.domain.segments import MODELS, SEGMENTS
+from cohort.domain.units import FF_UNITS, FIELD_UNITS, PARAMETERS, R2STAR_UNITS, T2STAR_UNITS
 
-if TYPE_CHECKING:  # pragma: no cover
-    from cohort.io.study import Study
-
-# --- the machinery ------------------------------------------------------------------------
-
-
-@dataclass(frozen=True)
-class Rule:
-    """What one value of a study file must be.
-
-    ``accepts(value)`` says whether the value is valid; ``expected`` says in words what is
-    (shown in the problem); ``kind`` names the type expected (``integer``, ``number``,
-    ``bool``, ``text``, ``list``, ``table``, ``other``) for the hints about common traps;
-    ``choices`` are the allowed words, for the did-you-mean hint.
-    """
-
-    expected: str
-    accepts: Callable[[Any], bool]
-    kind: str = "other"
-    choices: tuple[str, ...] = ()
-
-
-Hook = Callable[[Mapping[str, Any], frozenset[str], str, Mapping[str, Any]], list[Problem]]
-"""Rules relating several keys: ``(table, bad keys, file, whole document) -> problems``; the
-bad keys (and sub-tables) already have a problem and are to be left alone."""
+# --- [study], [units], [field], [checks] --------------------------------------------------
 
 
 @dataclass(frozen=True)
-class TableSchema:
-    """The keys of one table of a study file, each with its :class:`Rule`.
+class Checks:
+    """Plausibility limits of the loader; each is a documented default, configurable."""
 
-    ``fixed`` maps keys that are known but not configurable to the reason (they are
-    refused with it); ``entries`` are the rules of named sub-tables (``[findings.<name>]``);
-    ``check`` gives the problems of rules relating several keys (see :data:`Hook`).
-    """
+    ff_below_zero_tolerance: float = 5.0
+    """Fat fraction slightly below 0 % is legal noise near zero (Liu et al. 2007, memory)."""
+    ff_above_100_tolerance: float = 5.0
+    r2star_max: float = 1000.0
+    """1/s: T2* of 1 ms; well above myocardial hemorrhage or iron overload (common practice)."""
+    t2star_r2star_tolerance: float = 0.01
+    field_max_abs_hz: float = 2000.0
+    """Hz: far beyond myocardial off-resonance at 1.5-3 T (tens to a few hundred Hz;
+    common practice); larger values are unit or export errors."""
+    implausible: str = "refuse"
+    """What an implausible value does: ``"refuse"`` the study (an error listing each one) or
+    ``"exclude"`` the value (listed in the exclusions with its reason, used nowhere)."""
+    ff_percent_confirmed: bool = False
+    """``units.ff = "percent"`` with every fat fraction within 0-1 is refused as a likely
+    fraction; ``true`` confirms that the values really are percent (a cohort with almost no
+    fat) and turns the refusal into a warning."""
 
-    keys: Mapping[str, Rule]
-    required: tuple[str, ...] = ()
-    fixed: Mapping[str, str] = field(default_factory=dict)
-    entries: Mapping[str, Rule] | None = None
-    check: Hook | None = None
-
-
-def is_integer(value: object) -> bool:
-    """A TOML integer (or Python int): not a bool, not a float (``2000.0`` included)."""
-    return isinstance(value, numbers.Integral) and not isinstance(value, bool)
-
-
-def is_number(value: object) -> bool:
-    """A finite int or float, not a bool (TOML allows ``nan`` and ``inf``; we do not)."""
-    if not isinstance(value, numbers.Real) or isinstance(value, bool):
-        return False
-    try:
-        return math.isfinite(float(value))
-    except OverflowError:  # an int beyond the float range (not from TOML: 64-bit integers)
-        return False
+    def ff_limits(self, ff_unit: str) -> tuple[float, float]:
+        """The plausible fat-fraction range ``(low, high)`` in the declared unit: 0-100 %
+        widened by the tolerances (in percentage points), or the same as a 0-1 fraction."""
+        low, high = -self.ff_below_zero_tolerance, 100.0 + self.ff_above_100_tolerance
+        return (low, high) if ff_unit == "percent" else (low / 100.0, high / 100.0)
 
 
-def _within(value: float, low: float | None, high: float | None, open_: bool) -> bool:
-    if low is not None and (value <= low if open_ else value < low):
-        return False
-    return not (high is not None and (value >= high if open_ else value > high))
+DEFAULT_TITLE = "Untitled study"
+DEFAULT_SEGMENT_MODEL = "aha17"
+DEFAULT_FF_UNIT = "percent"
+DEFAULT_FIELD_UNIT = "Hz"
+DEFAULT_FIELD_REFERENCING = "subject-median"
+"""Defaults of ``[study] title`` and ``segment_model``, ``[units] ff`` and ``field`` and
+``[field] referencing`` (used by :class:`cohort.io.settings.StudySettings` and the flags)."""
+
+FIELD_REFERENCING = ("none", "subject-median", "remote")
+IMPLAUSIBLE = ("refuse", "exclude")
+"""What ``[checks] implausible`` may say (see :attr:`Checks.implausible`)."""
+
+CHECK_RULES: MappingProxyType[str, Rule] = MappingProxyType(
+    {
+        "ff_below_zero_tolerance": number(0.0, 100.0, note=" (percentage points)"),
+        "ff_above_100_tolerance": number(0.0, 100.0, note=" (percentage points)"),
+        "r2star_max": number(0.0, open_=True, note=" (1/s)"),
+        "t2star_r2star_tolerance": number(0.0, 1.0, note=" (relative)"),
+        "field_max_abs_hz": number(0.0, open_=True, note=" (Hz)"),
+        "implausible": choice(IMPLAUSIBLE),
+        "ff_percent_confirmed": flag(),
+    }
+)
+"""Rules of the ``[checks]`` keys: every field of :class:`Checks` (a test keeps them equal)."""
+
+STUDY_RULES: MappingProxyType[str, Rule] = MappingProxyType(
+    {
+        "title": text(),
+        "values": text(),
+        "subjects": text(),
+        "reference": text(),
+        "segment_model": choice(tuple(MODELS)),
+        "groups": texts(),
+        "group_labels": labels(),
+        "identifying_columns": texts(),
+    }
+)
+UNITS_RULES: MappingProxyType[str, Rule] = MappingProxyType(
+    {"ff": choice(FF_UNITS), "field": choice(FIELD_UNITS)}
+)
+UNITS_FIXED: MappingProxyType[str, str] = MappingProxyType(
+    {
+        "t2star": f"T2* is always read in {T2STAR_UNITS[0]} (parameter 't2star')",
+        "r2star": f"R2* is always read in {R2STAR_UNITS[0]} (parameter 'r2star')",
+    }
+)
+"""Unit keys that are known but have no choice: refused with the reason."""
+FIELD_RULES: MappingProxyType[str, Rule] = MappingProxyType(
+    {
+        "referencing": choice(FIELD_REFERENCING),
+        "remote_segments": integers(min(SEGMENTS), max(SEGMENTS), min_items=0),
+    }
+)
 
 
-def _range_text(low: float | None, high: float | None, open_: bool) -> str:
-    if low is not None and high is not None:
-        return f"strictly between {low:g} and {high:g}" if open_ else f"{low:g} to {high:g}"
-    if low is not None:
-        return f"{'>' if open_ else '>='} {low:g}"
-    if high is not None:
-        return f"{'<' if open_ else '<='} {high:g}"
-    return ""
-
-
-def integer(low: int | None = None, high: int | None = None, note: str = "") -> Rule:
-    """An integer (TOML integer, no decimal point) from ``low`` to ``high``."""
-    limits = _range_text(low, high, False)
-    return Rule(
-        f"an integer{' ' + limits if limits else ''}{note}",
-        lambda v: is_integer(v) and _within(int(v), low, high, False),
-        "integer",
-    )
-
-
-def number(
-    low: float | None = None, high: float | None = None, *, open_: bool = False, note: str = ""
-) -> Rule:
-    """A finite number (integer or decimal) within the limits (``open_``: limits excluded)."""
-    limits = _range_text(low, high, open_)
-    return Rule(
-        f"a finite number{' ' + limits if limits else ''}{note}",
-        lambda v: is_number(v) and _within(float(v), low, high, open_),
-        "number",
-    )
-
-
-def flag() -> Rule:
-    """``true`` or ``false``."""
-    return Rule("true or false", lambda v: isinstance(v, bool), "bool")
-
-
-def text() -> Rule:
-    """Text that is not blank."""
-    return Rule("text (not blank)", lambda v: isinstance(v, str) and bool(v.strip()), "text")
-
-
-def choice(allowed: tuple[str, ...]) -> Rule:
-    """One of the words ``allowed``."""
-    return Rule(
-        f"one of {list(allowed)}" if len(allowed) > 1 else repr(allowed[0]),
-        lambda v: isinstance(v, str) and v in allowed,
-        "text",
-        tuple(allowed),
-    )
-
-
-def _is_list(value: object) -> bool:
-    return isinstance(value, list | tuple)
-
-
-def texts(allowed: tuple[str, ...] | None = None, *, min_items: int = 0) -> Rule:
-    """A list of distinct, non-blank texts (each one of ``allowed`` if given)."""
-
-    def accepts(value: object) -> bool:
-        if not _is_list(value) or len(value) < min_items:  # type: ignore[arg-type]
-            return False
-        items = list(value)  # type: ignore[call-overload]
-        if not all(isinstance(v, str) and v.strip() for v in items):
-            return False
-        if allowed is not None and any(v not in allowed for v in items):
-            return False
-        return len({v.strip() for v in items}) == len(items)
-
-    what = "names" if allowed is None else f"names among {list(allowed)}"
-    least = {0: "", 1: "at least one, "}.get(min_items, f"at least {min_items}, ")
-    return Rule(f"a list of {least}distinct {what}", accepts, "list", tuple(allowed or ()))
-
-
-def integers(low: int, high: int, *, min_items: int = 1) -> Rule:
-    """A list of distinct integers from ``low`` to ``high`` (segment numbers)."""
-
-    def accepts(value: object) -> bool:
-        if not _is_list(value) or len(value) < min_items:  # type: ignore[arg-type]
-            return False
-        items = list(value)  # type: ignore[call-overload]
-        if not all(is_integer(v) and low <= v <= high for v in items):
-            return False
-        return len(set(items)) == len(items)
-
-    return Rule(f"a list of distinct integers from {low} to {high}", accepts, "list")
-
-
-def labels() -> Rule:
-    """A table of name = "text" pairs (display labels)."""
-
-    def accepts(value: object) -> bool:
-        return isinstance(value, Mapping) and all(
-            isinstance(v, str) and v.strip() for v in value.values()
-        )
-
-    return Rule('a table of name = "label" pairs (labels are text)', accepts, "table")
-
-
-def either(first: Rule, second: Rule) -> Rule:
-    """A value that satisfies one of two rules."""
-    return Rule(
-        f"{first.expected}, or {second.expected}",
-        lambda v: first.accepts(v) or second.accepts(v),
-        "other",
-        first.choices + second.choices,
-    )
-
-
-def value_text(value: object) -> str:
-    """A value as it would be written in TOML (``true``, ``nan``, ``[1, 2]``)."""
-    if isinstance(value, bool):
-        return "true" if value else "false"
-    if isinstance(value, float) and not math.isfinite(value):
-        return "nan" if math.isnan(value) else ("inf" if value > 0 else "-inf")
-    if isinstance(value, list | tuple):
-        return "[" + ", ".join(value_text(v) for v in value) + "]"
-    if isinstance(value, Mapping):
-        return "{" + ", ".join(f"{k} = {value_text(v)}" for k, v in value.items()) + "}"
-    return str(value)
-
-
-def did_you_mean(word: object, known: Any) -> str:
-    """``"; did you mean 'x'?"`` for the closest of ``known``, or ``""``."""
-    close = difflib.get_close_matches(str(word), [str(k) for k in known], n=1, cutoff=0.6)
-    return f"; did you mean '{close[0]}'?" if close else ""
-
-
-def _trap(value: object, rule: Rule) -> str:
-    """Why a value of the right look is refused: the traps of TOML and Python."""
-    numeric = rule.kind in ("integer", "number")
-    if numeric and isinstance(value, bool):
-        return " (true/false is not a number)"
-    if numeric and isinstance(value, float) and not math.isfinite(value):
-        return " (nan and inf are not accepted)"
-    if rule.kind == "integer" and isinstance(value, float):
-        return " (an integer is written without a decimal point, e.g. 2000)"
-    if numeric and isinstance(value, str):
-        return " (a number is written without quotes)"
-    if rule.choices and isinstance(value, str):
-        return did_you_mean(value, rule.choices)
-    if rule.kind == "list" and rule.choices and isinstance(value, list | tuple):
-        unknown = [v for v in value if v not in rule.choices]
-        if unknown:
-            return f" (unknown: {value_text(unknown)}{did_you_mean(unknown[0], rule.choices)})"
-    return ""
-
-
-def study_problem(
-    file: str, detail: str, value: object = None, expected: str | None = None
-) -> Problem:
-    """A ``study-option`` problem located in ``file`` (the table and key are in ``detail``)."""
-    return Problem(
-        "study-option",
-        detail,
-        file=file,
-        value=None if value is None else value_text(value),
-        expected=expected,
-    )
-
-
-def check_value(file: str, name: str, value: object, rule: Rule) -> list[Problem]:
-    """One problem if ``value`` breaks ``rule`` (``name`` is e.g. ``"[analysis] n_boot"``)."""
-    if rule.accepts(value):
-        return []
-    return [study_problem(file, f"{name} is not valid{_trap(value, rule)}", value, rule.expected)]
-
-
-def _key_problems(
-    file: str,
-    where: str,
-    key: str,
-    value: object,
-    keys: Mapping[str, Rule],
-    fixed: Mapping[str, str],
-    elsewhere: Mapping[str, str],
+def _check_study(
+    table: Mapping[str, Any], bad: frozenset[str], file: str, document: Mapping[str, Any]
 ) -> list[Problem]:
-    if key in keys:
-        return check_value(file, f"{where} {key}", value, keys[key])
-    if key in fixed:
-        return [
-            study_problem(
-                file, f"{where} {key} is not configurable: {fixed[key]}", key, "remove the key"
-            )
-        ]
-    hint = did_you_mean(key, keys)
-    if not hint and key in elsewhere:
-        hint = f"; did you mean '{key}' in [{elsewhere[key]}]?"
+    """Display labels name declared groups (when groups are declared)."""
+    if "groups" in bad or "group_labels" in bad or not table.get("groups"):
+        return []
+    groups = [g.strip() for g in table["groups"]]
     return [
-        study_problem(file, f"unknown key '{key}' in {where}{hint}", key, f"one of {sorted(keys)}")
+        study_problem(
+            file,
+            f"[study.group_labels] {name} labels a group that is not declared in [study] "
+            f"groups{did_you_mean(name, groups)}",
+            name,
+            f"one of {groups}",
+        )
+        for name in table.get("group_labels", {})
+        if name not in groups
     ]
 
 
-def check_table(
-    name: str,
-    content: object,
-    schema: TableSchema,
-    file: str,
-    document: Mapping[str, Any] | None = None,
-    elsewhere: Mapping[str, str] | None = None,
+def _check_field(
+    table: Mapping[str, Any], bad: frozenset[str], file: str, document: Mapping[str, Any]
 ) -> list[Problem]:
-    """Every problem of one table against its schema: its keys, its named sub-tables, the
-    required keys, then the rules relating several keys (``schema.check``)."""
-    where = f"[{name}]"
-    if not isinstance(content, Mapping):
-        return [study_problem(file, f"{where} must be a table", content, "a table of keys")]
+    """Remote referencing needs remote segments, and they are segments of the model."""
     problems: list[Problem] = []
-    bad: set[str] = set()
-    for key, value in content.items():
-        if schema.entries is not None and isinstance(value, Mapping) and key not in schema.keys:
-            found = [
-                p
-                for sub_key, sub_value in value.items()
-                for p in _key_problems(
-                    file, f"[{name}.{key}]", sub_key, sub_value, schema.entries, {}, {}
-                )
-            ]
-        else:
-            found = _key_problems(
-                file, where, key, value, schema.keys, schema.fixed, elsewhere or {}
-            )
-        if found:
-            bad.add(key)
-            problems += found
-    for key in schema.required:
-        if key not in content:
-            problems.append(
-                study_problem(file, f"{where} needs '{key}'", None, schema.keys[key].expected)
-            )
-    if schema.check is not None:
-        problems += schema.check(content, frozenset(bad), file, document or {name: content})
-    return problems
-
-
-def check_document(
-    document: Mapping[str, Any], schema: Mapping[str, TableSchema], file: str
-) -> list[Problem]:
-    """Every problem of a whole study file: unknown tables, then each table in turn."""
-    owner = {key: name for name, table in schema.items() for key in table.keys}
-    problems: list[Problem] = []
-    for name, content in document.items():
-        if name in schema:
-            continue
-        if not isinstance(content, Mapping):
-            close = difflib.get_close_matches(name, list(owner), n=1, cutoff=0.6)
-            hint = f"; did you mean '{close[0]}' in [{owner[close[0]]}]?" if close else ""
-            problems.append(
-                study_problem(
-                    file, f"key '{name}' is outside any table{hint}", name,
-                    f"keys inside one of the tables {[f'[{t}]' for t in schema]}",
-                )
-            )  # fmt: skip
-            continue
+    study = document.get("study")
+    model_name = (
+        study.get("segment_model", DEFAULT_SEGMENT_MODEL)
+        if isinstance(study, Mapping)
+        else DEFAULT_SEGMENT_MODEL
+    )
+    model = MODELS.get(model_name) if isinstance(model_name, str) else None
+    remote = [] if "remote_segments" in bad else list(table.get("remote_segments", []))
+    if model is not None and any(s not in model for s in remote):
         problems.append(
             study_problem(
                 file,
-                f"unknown table [{name}]{did_you_mean(name, schema)}",
-                name,
-                f"one of {[f'[{t}]' for t in schema]}",
+                f"[field] remote_segments names a segment outside the model '{model_name}'",
+                remote,
+                f"segment numbers of {model_name}",
             )
         )
-    for name, table in schema.items():
-        if name in document:
-            problems += check_table(name, document[name], table, file, document, owner)
-        elif table.required:
-            problems.append(
-                study_problem(file, f"[{name}] is missing", None,
-                              f"a table [{name}] with {list(table.required)}")
-            )  # fmt: skip
+    if table.get("referencing") == "remote" and not remote and "remote_segments" not in bad:
+        problems.append(
+            study_problem(
+                file, "[field] referencing = 'remote' needs remote_segments", None,
+                "a list of segment numbers",
+            )
+        )  # fmt: skip
     return problems
+
+
+STUDY_SCHEMA = TableSchema(
+    STUDY_RULES, required=("values", "subjects", "reference"), check=_check_study
+)
+UNITS_SCHEMA = TableSchema(UNITS_RULES, fixed=UNITS_FIXED)
+FIELD_SCHEMA = TableSchema(FIELD_RULES, check=_check_field)
+CHECKS_SCHEMA = TableSchema(CHECK_RULES)
+"""Schemas of the ``[study]``, ``[units]``, ``[field]`` and ``[checks]`` tables."""
 
 
 # --- the [analysis] table -----------------------------------------------------------------
@@ -482,23 +300,30 @@ OVERRIDE_FLAGS: MappingProxyType[str, str] = MappingProxyType(
 """The ``cohort run`` flag of an override, to name it in a problem."""
 
 ANALYSIS_SCHEMA = TableSchema(keys=ANALYSIS_RULES)
-"""Schema of the ``[analysis]`` table (see :func:`check_document`)."""
+"""Schema of the ``[analysis]`` table (see :func:`cohort.domain.rules.check_document`)."""
 
 
-def options_from_table(
-    table: Mapping[str, Any] | None, file: str = "study file", **overrides: Any
-) -> RunOptions:
-    """Options of an ``[analysis]`` table, then ``overrides`` (those not None).
+def override_options(options: RunOptions, **overrides: Any) -> RunOptions:
+    """``options`` with ``overrides`` (those not None), each checked by its rule.
 
-    Raises :class:`StudyError` listing every invalid key of the table and every invalid
-    override (located at ``file`` and ``"command line"``); unknown override names are a
-    programming error (TypeError).
+    Raises :class:`StudyError` listing every invalid override (located at ``"command line"``,
+    naming the flag where there is one); unknown override names are a programming error
+    (TypeError).
+
+    Examples
+    --------
+    >>> override_options(RunOptions(), n_boot=0, seed=None).n_boot
+    0
+    >>> override_options(RunOptions(), n_boot=5)
+    Traceback (most recent call last):
+    ...
+    cohort.domain.problems.StudyError: ...option 'n_boot' (--bootstrap) is not valid...
     """
-    problems = check_table("analysis", table or {}, ANALYSIS_SCHEMA, file)
     given = {k: v for k, v in overrides.items() if v is not None}
     unknown = sorted(set(given) - set(OVERRIDE_RULES))
     if unknown:
         raise TypeError(f"unknown options {unknown}; known: {sorted(OVERRIDE_RULES)}")
+    problems: list[Problem] = []
     for key, value in given.items():
         flag_name = f" ({OVERRIDE_FLAGS[key]})" if key in OVERRIDE_FLAGS else ""
         problems += check_value(
@@ -506,24 +331,17 @@ def options_from_table(
         )
     if problems:
         raise StudyError(problems)
-    values = {**dict(table or {}), **given}  # every key checked above: all are options
-    return replace(RunOptions(), **{k: _as_option(v, OVERRIDE_RULES[k]) for k, v in values.items()})
+    return replace(options, **{k: as_option(v, OVERRIDE_RULES[k]) for k, v in given.items()})
 
 
-def _as_option(value: Any, rule: Rule) -> Any:
-    """A checked value as :class:`RunOptions` holds it (the rule's kind says which type)."""
+def as_option(value: Any, rule: Rule) -> Any:
+    """A checked value as :class:`RunOptions` holds it (the rule's kind says which type).
+
+    Examples
+    --------
+    >>> as_option(2, ANALYSIS_RULES["error_ratio"]), as_option([" all "], ANALYSIS_RULES["strata"])
+    (2.0, ('all',))
+    """
     if isinstance(value, list | tuple):
         return tuple(str(s).strip() for s in value)
     return {"integer": int, "number": float}.get(rule.kind, lambda v: v)(value)
-
-
-def options_from_study(study: Study, **overrides: Any) -> RunOptions:
-    """Options of the study file's ``[analysis]`` table, then ``overrides`` (not None).
-
-    The table was checked when the study file was read; it is checked again here for
-    settings built otherwise, and the overrides (``--seed``, ``--bootstrap``,
-    ``--workers``, ...) obey the same rules. Raises :class:`StudyError`.
-    """
-    settings = study.settings
-    file = settings.input_name(settings.study_file) or "study settings"
-    return options_from_table(settings.extra.get("analysis"), file, **overrides)

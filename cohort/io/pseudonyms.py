@@ -269,81 +269,94 @@ def pseudonymize_study(study: Study, key: bytes) -> tuple[Study, pd.DataFrame]:
         (``kind`` = :data:`SUBJECT_KIND`) and per distinct identifying value of each
         identifying column (``kind`` = :data:`IDENTIFYING_KIND`).
     """
-    settings = study.settings
     subject_ids: dict[str, None] = {}
     for frame in (study.subjects, study.values, study.paired, study.records):
         subject_ids.update(dict.fromkeys(_distinct(frame["subject"])))
     named = (str(w.subject) for w in study.warnings if w.subject is not None)
     subject_ids.update(dict.fromkeys(named))
-    mapping = {s: pseudonym(s, key) for s in subject_ids}
-    ids = _IdIndex.of(mapping)
-    identifying = frozenset(_name(c) for c in settings.identifying_columns)
-    entries: list[tuple[str, str, str]] = [(SUBJECT_KIND, "subject", s) for s in mapping]
-    roles = _roles(settings)
-    added: list[Problem] = []
-    dropped_names: set[str] = set()
-
-    def clean(frame: pd.DataFrame, defined: Iterable[str], role: str) -> pd.DataFrame:
-        extras = [c for c in frame.columns if c not in set(defined)]
-        coded, dropped = _screen_extras(frame, extras, identifying, ids)
-        out = frame.drop(columns=dropped)
-        out["subject"] = _recode_subjects(out["subject"], mapping)
-        for column in coded:
-            out[column], texts = _code_cells(out[column], key)
-            entries.extend((IDENTIFYING_KIND, column, t) for t in texts)
-        added.extend(_dropped_warning(str(c), role, ids) for c in dropped)
-        dropped_names.update(_name(c) for c in dropped)
-        return out
-
-    subjects = clean(study.subjects, DEFINED_SUBJECT_COLUMNS, ROLES["subjects"])
-    records = clean(study.records, RECORD_COLUMNS, ROLES["values"])
-    # categorical columns: each category mapped once, not each of millions of rows
-    source = records["source_file"].map(lambda f: _role(str(f), roles))
-    records["source_file"] = source.astype("category")
-    for column in _distinct(records["source_column"]):
-        if _name(column) in identifying:  # a measurement cell of an identifying column
-            rows = records["source_column"].astype(str).eq(column).to_numpy()
-            records.loc[rows, "value_text"], texts = _code_cells(
-                records.loc[rows, "value_text"], key
-            )
-            entries.extend((IDENTIFYING_KIND, column, t) for t in texts)
-
-    def clean_value(problem: Problem) -> str | None:
-        value, column = problem.value, _name(problem.column or "")
-        if value is None or not value.strip():
-            return value
-        if column == "subject" or ids.equals(value):
-            entries.append((SUBJECT_KIND, "subject", value.strip()))
-            return pseudonym(value.strip(), key)
-        if column in identifying:
-            entries.append((IDENTIFYING_KIND, column, value.strip()))
-            return pseudonym(value.strip(), key)
-        return WITHHELD if column in dropped_names else withhold(value)
-
-    def withhold(text: str | None) -> str | None:
-        """``text``, or :data:`WITHHELD` when it holds a subject ID or names an input file."""
-        if text is None or not (ids.holds(text) or any(name in text for name in roles)):
-            return text
-        return WITHHELD
-
-    warnings = [
-        replace(
-            w,
-            subject=None if w.subject is None else mapping[str(w.subject)],
-            value=clean_value(w),
-            detail=withhold(w.detail),
-            expected=withhold(w.expected),
-            column=withhold(w.column),
-            file=_role(w.file, roles),
-        )
-        for w in study.warnings
-    ]
+    coder = _Coder(study.settings, key, {s: pseudonym(s, key) for s in subject_ids})
+    subjects = coder.clean(study.subjects, DEFINED_SUBJECT_COLUMNS, ROLES["subjects"])
+    records = coder.clean(study.records, RECORD_COLUMNS, ROLES["values"])
+    coder.code_records(records)
+    warnings = [coder.warning(w) for w in study.warnings]
+    mapping = coder.mapping
     pseudo = replace(
         study,
         subjects=subjects,
         values=study.values.assign(subject=_recode_subjects(study.values["subject"], mapping)),
         paired=study.paired.assign(subject=_recode_subjects(study.paired["subject"], mapping)),
         records=records,
-        warnings=[*warnings, *added],
+        warnings=[*warnings, *coder.added],
     )
-    return pseudo, code_list(entries, key)
+    return pseudo, code_list(coder.entries, key)
+
+
+class _Coder:
+    """The codes of one pseudonymised run: what it replaced (the code list's entries), the
+    columns it dropped and the warnings it adds."""
+
+    def __init__(self, settings: StudySettings, key: bytes, mapping: dict[str, str]) -> None:
+        self.key = key
+        self.mapping = mapping
+        self.ids = _IdIndex.of(mapping)
+        self.identifying = frozenset(_name(c) for c in settings.identifying_columns)
+        self.entries: list[tuple[str, str, str]] = [(SUBJECT_KIND, "subject", s) for s in mapping]
+        self.roles = _roles(settings)
+        self.added: list[Problem] = []
+        self.dropped_names: set[str] = set()
+
+    def clean(self, frame: pd.DataFrame, defined: Iterable[str], role: str) -> pd.DataFrame:
+        """``frame`` with subject IDs coded, identifying columns coded, ID columns dropped."""
+        extras = [c for c in frame.columns if c not in set(defined)]
+        coded, dropped = _screen_extras(frame, extras, self.identifying, self.ids)
+        out = frame.drop(columns=dropped)
+        out["subject"] = _recode_subjects(out["subject"], self.mapping)
+        for column in coded:
+            out[column], texts = _code_cells(out[column], self.key)
+            self.entries.extend((IDENTIFYING_KIND, column, t) for t in texts)
+        self.added.extend(_dropped_warning(str(c), role, self.ids) for c in dropped)
+        self.dropped_names.update(_name(c) for c in dropped)
+        return out
+
+    def code_records(self, records: pd.DataFrame) -> None:
+        """Input files named by role; measurement cells of identifying columns coded."""
+        # categorical columns: each category mapped once, not each of millions of rows
+        source = records["source_file"].map(lambda f: _role(str(f), self.roles))
+        records["source_file"] = source.astype("category")
+        for column in _distinct(records["source_column"]):
+            if _name(column) in self.identifying:  # a measurement cell of an identifying column
+                rows = records["source_column"].astype(str).eq(column).to_numpy()
+                records.loc[rows, "value_text"], texts = _code_cells(
+                    records.loc[rows, "value_text"], self.key
+                )
+                self.entries.extend((IDENTIFYING_KIND, column, t) for t in texts)
+
+    def warning(self, w: Problem) -> Problem:
+        """An input warning with IDs coded and texts naming an ID or an input file withheld."""
+        return replace(
+            w,
+            subject=None if w.subject is None else self.mapping[str(w.subject)],
+            value=self._value(w),
+            detail=self._withhold(w.detail),
+            expected=self._withhold(w.expected),
+            column=self._withhold(w.column),
+            file=_role(w.file, self.roles),
+        )
+
+    def _value(self, problem: Problem) -> str | None:
+        value, column = problem.value, _name(problem.column or "")
+        if value is None or not value.strip():
+            return value
+        if column == "subject" or self.ids.equals(value):
+            self.entries.append((SUBJECT_KIND, "subject", value.strip()))
+            return pseudonym(value.strip(), self.key)
+        if column in self.identifying:
+            self.entries.append((IDENTIFYING_KIND, column, value.strip()))
+            return pseudonym(value.strip(), self.key)
+        return WITHHELD if column in self.dropped_names else self._withhold(value)
+
+    def _withhold(self, text: str | None) -> str | None:
+        """``text``, or :data:`WITHHELD` when it holds a subject ID or names an input file."""
+        if text is None or not (self.ids.holds(text) or any(n in text for n in self.roles)):
+            return text
+        return WITHHELD

@@ -33,10 +33,14 @@ A study file has these tables (all keys are optional except ``values``, ``subjec
     ff_percent_confirmed = false         # true: fat fractions all within 0-1 really are percent
 
 Tables ``[analysis]`` (:mod:`cohort.domain.options`) and ``[findings]``
-(:mod:`cohort.domain.thresholds`)
-are checked here too and kept as given in :attr:`StudySettings.extra` for the analysis.
-Every table, key, type and range is in :data:`STUDY_FILE`; T2* is always read in ms and R2*
-in 1/s, so ``[units]`` has no key for them.
+(:mod:`cohort.domain.thresholds`) are part of it. This module is the one place that parses a
+study file: :func:`read_study_file` (and :func:`build_settings`, the same from flags or a
+notebook) checks every table at once, listing every problem of every table in one
+:class:`StudyError`, and returns a complete, typed :class:`StudySettings` holding the
+analysis options (:class:`RunOptions`), the finding definitions and the swap-screen
+options; later stages take these objects and never read a table again. Every table, key,
+type and range is in :data:`STUDY_FILE`; T2* is always read in ms and R2* in 1/s, so
+``[units]`` has no key for them.
 """
 
 from __future__ import annotations
@@ -50,82 +54,72 @@ from types import MappingProxyType
 from typing import Any
 
 from cohort.domain.options import (
+    ANALYSIS_RULES,
     ANALYSIS_SCHEMA,
-    Rule,
-    TableSchema,
-    check_document,
-    choice,
-    did_you_mean,
-    flag,
-    integers,
-    labels,
-    number,
-    study_problem,
-    text,
-    texts,
+    CHECK_RULES,
+    CHECKS_SCHEMA,
+    DEFAULT_FF_UNIT,
+    DEFAULT_FIELD_REFERENCING,
+    DEFAULT_FIELD_UNIT,
+    DEFAULT_SEGMENT_MODEL,
+    DEFAULT_TITLE,
+    FIELD_SCHEMA,
+    STUDY_SCHEMA,
+    UNITS_SCHEMA,
+    Checks,
+    RunOptions,
+    as_option,
 )
 from cohort.domain.problems import Problem, StudyError
-from cohort.domain.segments import MODELS, SEGMENTS
-from cohort.domain.thresholds import FINDINGS_SCHEMA
-from cohort.domain.units import FF_UNITS, FIELD_UNITS, R2STAR_UNITS, T2STAR_UNITS
-
-
-@dataclass(frozen=True)
-class Checks:
-    """Plausibility limits of the loader; each is a documented default, configurable."""
-
-    ff_below_zero_tolerance: float = 5.0
-    """Fat fraction slightly below 0 % is legal noise near zero (Liu et al. 2007, memory)."""
-    ff_above_100_tolerance: float = 5.0
-    r2star_max: float = 1000.0
-    """1/s: T2* of 1 ms; well above myocardial hemorrhage or iron overload (common practice)."""
-    t2star_r2star_tolerance: float = 0.01
-    field_max_abs_hz: float = 2000.0
-    """Hz: far beyond myocardial off-resonance at 1.5-3 T (tens to a few hundred Hz;
-    common practice); larger values are unit or export errors."""
-    implausible: str = "refuse"
-    """What an implausible value does: ``"refuse"`` the study (an error listing each one) or
-    ``"exclude"`` the value (listed in the exclusions with its reason, used nowhere)."""
-    ff_percent_confirmed: bool = False
-    """``units.ff = "percent"`` with every fat fraction within 0-1 is refused as a likely
-    fraction; ``true`` confirms that the values really are percent (a cohort with almost no
-    fat) and turns the refusal into a warning."""
-
-    def ff_limits(self, ff_unit: str) -> tuple[float, float]:
-        """The plausible fat-fraction range ``(low, high)`` in the declared unit: 0-100 %
-        widened by the tolerances (in percentage points), or the same as a 0-1 fraction."""
-        low, high = -self.ff_below_zero_tolerance, 100.0 + self.ff_above_100_tolerance
-        return (low, high) if ff_unit == "percent" else (low / 100.0, high / 100.0)
+from cohort.domain.rules import TableSchema, check_document
+from cohort.domain.thresholds import DEFAULT_FINDINGS, FindingDefinition, SwapOptions
+from cohort.io.findings_table import FINDINGS_SCHEMA, build_findings
 
 
 @dataclass(frozen=True)
 class StudySettings:
-    """Everything a study declares. Paths are absolute once resolved."""
+    """Everything a study declares, checked and typed. Paths are absolute once resolved."""
 
     values: Path
     subjects: Path
     reference: str
-    title: str = "Untitled study"
-    segment_model: str = "aha17"
+    title: str = DEFAULT_TITLE
+    segment_model: str = DEFAULT_SEGMENT_MODEL
     groups: tuple[str, ...] = ()
     group_labels: dict[str, str] = field(default_factory=dict)
-    ff_unit: str = "percent"
-    field_unit: str = "Hz"
-    field_referencing: str = "subject-median"
+    ff_unit: str = DEFAULT_FF_UNIT
+    field_unit: str = DEFAULT_FIELD_UNIT
+    field_referencing: str = DEFAULT_FIELD_REFERENCING
     remote_segments: tuple[int, ...] = ()
     checks: Checks = field(default_factory=Checks)
     identifying_columns: tuple[str, ...] = ()
     """Extra input columns whose cells identify a person (e.g. a hospital number): with
     pseudonymisation every cell of them is replaced by its keyed code."""
+    options: RunOptions = field(default_factory=RunOptions)
+    """The ``[analysis]`` table: options of the analysis (overridable per run)."""
+    findings: tuple[FindingDefinition, ...] = DEFAULT_FINDINGS
+    """The ``[findings]`` table: the findings to evaluate."""
+    swap: SwapOptions = field(default_factory=SwapOptions)
+    """The ``[findings]`` table: options of the fat-water swap screen."""
     study_file: Path | None = None
-    extra: dict[str, Any] = field(default_factory=dict)
+    as_written: Mapping[str, Any] = field(default_factory=dict)
+    """The ``[analysis]`` and ``[findings]`` tables as the study file gave them: recorded in
+    the manifest only (the parsed forms are :attr:`options`, :attr:`findings`, :attr:`swap`)."""
 
     def with_options(self, **changes: Any) -> StudySettings:
         return replace(self, **changes)
 
     def input_name(self, path: Path | None) -> str | None:
         """How an output names an input file: relative to the study file's folder (POSIX
-        separators), or its file name alone without a study file; never an absolute path."""
+        separators), or its file name alone without a study file; never an absolute path.
+
+        Examples
+        --------
+        >>> here = Path("/data/study").resolve()
+        >>> s = StudySettings(here / "v.csv", here / "s.csv", "ref", study_file=here / "study.toml")
+        >>> s.input_name(here / "tables" / "values.csv"), s.input_name(None)
+        ('tables/values.csv', None)
+        """
         if path is None:
             return None
         path = Path(path)
@@ -133,6 +127,11 @@ class StudySettings:
             return path.name
         base = Path(self.study_file).resolve().parent
         return Path(os.path.relpath(path.resolve(), base)).as_posix()
+
+    @property
+    def source_name(self) -> str:
+        """Where problems of the settings are located: the study file, as outputs name it."""
+        return self.input_name(self.study_file) or "study settings"
 
     def to_dict(self, *, hide_paths: bool = False) -> dict[str, Any]:
         """Resolved settings as plain data (for the manifest and the report).
@@ -160,121 +159,24 @@ class StudySettings:
             },
             "checks": vars(self.checks).copy(),
             "identifying_columns": list(self.identifying_columns),
-            **{k: v for k, v in self.extra.items()},
+            **dict(self.as_written),
         }
-
-
-FIELD_REFERENCING = ("none", "subject-median", "remote")
-IMPLAUSIBLE = ("refuse", "exclude")
-"""What ``[checks] implausible`` may say (see :attr:`Checks.implausible`)."""
-
-CHECK_RULES: MappingProxyType[str, Rule] = MappingProxyType(
-    {
-        "ff_below_zero_tolerance": number(0.0, 100.0, note=" (percentage points)"),
-        "ff_above_100_tolerance": number(0.0, 100.0, note=" (percentage points)"),
-        "r2star_max": number(0.0, open_=True, note=" (1/s)"),
-        "t2star_r2star_tolerance": number(0.0, 1.0, note=" (relative)"),
-        "field_max_abs_hz": number(0.0, open_=True, note=" (Hz)"),
-        "implausible": choice(IMPLAUSIBLE),
-        "ff_percent_confirmed": flag(),
-    }
-)
-"""Rules of the ``[checks]`` keys: every field of :class:`Checks` (a test keeps them equal)."""
-
-STUDY_RULES: MappingProxyType[str, Rule] = MappingProxyType(
-    {
-        "title": text(),
-        "values": text(),
-        "subjects": text(),
-        "reference": text(),
-        "segment_model": choice(tuple(MODELS)),
-        "groups": texts(),
-        "group_labels": labels(),
-        "identifying_columns": texts(),
-    }
-)
-UNITS_RULES: MappingProxyType[str, Rule] = MappingProxyType(
-    {"ff": choice(FF_UNITS), "field": choice(FIELD_UNITS)}
-)
-UNITS_FIXED: MappingProxyType[str, str] = MappingProxyType(
-    {
-        "t2star": f"T2* is always read in {T2STAR_UNITS[0]} (parameter 't2star')",
-        "r2star": f"R2* is always read in {R2STAR_UNITS[0]} (parameter 'r2star')",
-    }
-)
-"""Unit keys that are known but have no choice: refused with the reason."""
-FIELD_RULES: MappingProxyType[str, Rule] = MappingProxyType(
-    {
-        "referencing": choice(FIELD_REFERENCING),
-        "remote_segments": integers(min(SEGMENTS), max(SEGMENTS), min_items=0),
-    }
-)
-
-
-def _check_study(
-    table: Mapping[str, Any], bad: frozenset[str], file: str, document: Mapping[str, Any]
-) -> list[Problem]:
-    """Display labels name declared groups (when groups are declared)."""
-    if "groups" in bad or "group_labels" in bad or not table.get("groups"):
-        return []
-    groups = [g.strip() for g in table["groups"]]
-    return [
-        study_problem(
-            file,
-            f"[study.group_labels] {name} labels a group that is not declared in [study] "
-            f"groups{did_you_mean(name, groups)}",
-            name,
-            f"one of {groups}",
-        )
-        for name in table.get("group_labels", {})
-        if name not in groups
-    ]
-
-
-def _check_field(
-    table: Mapping[str, Any], bad: frozenset[str], file: str, document: Mapping[str, Any]
-) -> list[Problem]:
-    """Remote referencing needs remote segments, and they are segments of the model."""
-    problems: list[Problem] = []
-    study = document.get("study")
-    model_name = study.get("segment_model", "aha17") if isinstance(study, Mapping) else "aha17"
-    model = MODELS.get(model_name) if isinstance(model_name, str) else None
-    remote = [] if "remote_segments" in bad else list(table.get("remote_segments", []))
-    if model is not None and any(s not in model for s in remote):
-        problems.append(
-            study_problem(
-                file,
-                f"[field] remote_segments names a segment outside the model '{model_name}'",
-                remote,
-                f"segment numbers of {model_name}",
-            )
-        )
-    if table.get("referencing") == "remote" and not remote and "remote_segments" not in bad:
-        problems.append(
-            study_problem(
-                file, "[field] referencing = 'remote' needs remote_segments", None,
-                "a list of segment numbers",
-            )
-        )  # fmt: skip
-    return problems
 
 
 STUDY_FILE: MappingProxyType[str, TableSchema] = MappingProxyType(
     {
-        "study": TableSchema(
-            STUDY_RULES, required=("values", "subjects", "reference"), check=_check_study
-        ),
-        "units": TableSchema(UNITS_RULES, fixed=UNITS_FIXED),
-        "field": TableSchema(FIELD_RULES, check=_check_field),
-        "checks": TableSchema(CHECK_RULES),
+        "study": STUDY_SCHEMA,
+        "units": UNITS_SCHEMA,
+        "field": FIELD_SCHEMA,
+        "checks": CHECKS_SCHEMA,
         "analysis": ANALYSIS_SCHEMA,
         "findings": FINDINGS_SCHEMA,
     }
 )
 """Every table a study file may hold, with the rules of its keys: the one place where the
-study file's format is checked (:func:`cohort.domain.options.check_document`)."""
-LATER_TABLES = ("analysis", "findings")
-"""Tables interpreted by the analysis (kept in :attr:`StudySettings.extra`)."""
+study file's format is checked (:func:`cohort.domain.rules.check_document`)."""
+RECORDED_TABLES = ("analysis", "findings")
+"""Tables recorded as written in the manifest (:attr:`StudySettings.as_written`)."""
 
 
 def _unreadable(path: Path, detail: str) -> StudyError:
@@ -306,6 +208,15 @@ def read_study_file(path: str | Path) -> StudySettings:
 
     Raises :class:`StudyError` listing every problem of every table (unknown tables and keys
     with a did-you-mean hint, wrong types, values out of range; see :data:`STUDY_FILE`).
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> from cohort.demo import write_demo
+    >>> with tempfile.TemporaryDirectory() as folder:
+    ...     settings = read_study_file(write_demo(folder, n_subjects=6))
+    >>> settings.reference, settings.options.n_boot, [d.name for d in settings.findings]
+    ('reference-fit', 2000, ['hemorrhage', 'fat'])
     """
     path = Path(path)
     try:
@@ -317,29 +228,18 @@ def read_study_file(path: str | Path) -> StudySettings:
     problems = check_document(data, STUDY_FILE, str(path))
     if problems:
         raise StudyError(problems)
-    return _settings(
-        data,
-        base=path.parent.resolve(),
-        study_file=path.resolve(),
-        extra={k: data[k] for k in LATER_TABLES if k in data},
-    )
+    return _settings(data, base=path.parent.resolve(), study_file=path.resolve())
 
 
 def _settings(
-    document: Mapping[str, Any],
-    *,
-    base: Path | None,
-    study_file: Path | None,
-    extra: dict[str, Any],
+    document: Mapping[str, Any], *, base: Path | None, study_file: Path | None
 ) -> StudySettings:
     """:class:`StudySettings` of a checked document (paths relative to ``base``)."""
     study = document["study"]
     units = document.get("units", {})
     fieldopts = document.get("field", {})
-    checks = {
-        k: float(v) if CHECK_RULES[k].kind == "number" else v
-        for k, v in document.get("checks", {}).items()
-    }
+    checks = {k: as_option(v, CHECK_RULES[k]) for k, v in document.get("checks", {}).items()}
+    findings, swap = build_findings(document.get("findings"), str(study_file or "settings"))
 
     def where(name: str) -> Path:
         return base / name if base is not None else Path(name)
@@ -348,19 +248,27 @@ def _settings(
         values=where(study["values"]),
         subjects=where(study["subjects"]),
         reference=study["reference"].strip(),
-        title=study.get("title", "Untitled study"),
-        segment_model=study.get("segment_model", "aha17"),
+        title=study.get("title", DEFAULT_TITLE),
+        segment_model=study.get("segment_model", DEFAULT_SEGMENT_MODEL),
         groups=tuple(g.strip() for g in study.get("groups", ())),
         group_labels={str(k): str(v) for k, v in study.get("group_labels", {}).items()},
-        ff_unit=units.get("ff", "percent"),
-        field_unit=units.get("field", "Hz"),
-        field_referencing=fieldopts.get("referencing", "subject-median"),
+        ff_unit=units.get("ff", DEFAULT_FF_UNIT),
+        field_unit=units.get("field", DEFAULT_FIELD_UNIT),
+        field_referencing=fieldopts.get("referencing", DEFAULT_FIELD_REFERENCING),
         remote_segments=tuple(int(s) for s in fieldopts.get("remote_segments", ())),
         checks=Checks(**checks),
         identifying_columns=tuple(c.strip() for c in study.get("identifying_columns", ())),
+        options=_run_options(document.get("analysis", {})),
+        findings=findings,
+        swap=swap,
         study_file=study_file,
-        extra=extra,
+        as_written={k: document[k] for k in RECORDED_TABLES if k in document},
     )
+
+
+def _run_options(table: Mapping[str, Any]) -> RunOptions:
+    """:class:`RunOptions` of a checked ``[analysis]`` table (defaults for keys not given)."""
+    return replace(RunOptions(), **{k: as_option(v, ANALYSIS_RULES[k]) for k, v in table.items()})
 
 
 def _number_text(value: object) -> object:
@@ -375,24 +283,36 @@ def build_settings(
     values: str | Path,
     subjects: str | Path,
     reference: str,
-    title: str = "Untitled study",
-    segment_model: str = "aha17",
+    title: str = DEFAULT_TITLE,
+    segment_model: str = DEFAULT_SEGMENT_MODEL,
     groups: Any = (),
     group_labels: Any = None,
-    ff_unit: str = "percent",
-    field_unit: str = "Hz",
-    field_referencing: str = "subject-median",
+    ff_unit: str = DEFAULT_FF_UNIT,
+    field_unit: str = DEFAULT_FIELD_UNIT,
+    field_referencing: str = DEFAULT_FIELD_REFERENCING,
     remote_segments: Any = (),
     checks: Any = None,
     identifying_columns: Any = (),
     study_file: Path | None = None,
-    extra: dict[str, Any] | None = None,
+    tables: Mapping[str, Any] | None = None,
     source: str = "command line",
 ) -> StudySettings:
     """Check option values and build :class:`StudySettings` (the flag form, or a notebook).
 
-    The values obey the rules of the study file (:data:`STUDY_FILE`); problems are located
-    at ``source`` and raised together as one :class:`StudyError`.
+    The values obey the rules of the study file (:data:`STUDY_FILE`); ``tables`` may give the
+    ``[analysis]`` and ``[findings]`` tables as a study file would. Problems are located at
+    ``source`` and raised together as one :class:`StudyError`.
+
+    Examples
+    --------
+    >>> s = build_settings(values="v.csv", subjects="s.csv", reference="ref",
+    ...                    tables={"analysis": {"n_boot": 0}})
+    >>> s.values.name, s.options.n_boot, s.field_referencing
+    ('v.csv', 0, 'subject-median')
+    >>> build_settings(values="v.csv", subjects="s.csv", reference="ref", ff_unit="permille")
+    Traceback (most recent call last):
+    ...
+    cohort.domain.problems.StudyError: ...[units] ff is not valid...
     """
     if isinstance(checks, Checks):
         checks = vars(checks)
@@ -418,9 +338,9 @@ def build_settings(
         "units": {"ff": ff_unit, "field": field_unit},
         "field": {"referencing": field_referencing, "remote_segments": remote_segments},
         "checks": dict(checks or {}),
-        **dict(extra or {}),
+        **dict(tables or {}),
     }
     problems = check_document(document, STUDY_FILE, source)
     if problems:
         raise StudyError(problems)
-    return _settings(document, base=None, study_file=study_file, extra=dict(extra or {}))
+    return _settings(document, base=None, study_file=study_file)

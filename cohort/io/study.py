@@ -21,11 +21,10 @@ from cohort.domain.segments import SEGMENTS, segment_model
 from cohort.domain.units import PARAMETERS, fraction_to_percent, ppm_to_hz, t2star_ms_to_r2star
 from cohort.io.loading import ROW, read_table
 from cohort.io.settings import StudySettings, read_study_file
-from cohort.io.validation import (
+from cohort.io.subject_checks import check_subjects
+from cohort.io.validation import PER_CODE, check_across
+from cohort.io.value_checks import (
     IMPLAUSIBLE,
-    PER_CODE,
-    check_across,
-    check_subjects,
     check_values,
     flag_field,
     report_excluded_implausible,
@@ -229,12 +228,30 @@ def load_study(source: str | Path | StudySettings) -> Study:
     return Study(settings, subjects, canonical, paired, records, log.warnings)
 
 
+def check_study(source: str | Path | StudySettings) -> Study:
+    """Read and check a study without analysing it (what ``cohort check`` does).
+
+    Every check of :func:`load_study` runs and nothing is written. Returns the checked
+    :class:`Study` (its :meth:`Study.summary` is what ``cohort check`` prints) or raises
+    :class:`~cohort.domain.problems.StudyError` listing every problem of the study file and
+    of both tables.
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> from cohort.demo import write_demo
+    >>> with tempfile.TemporaryDirectory() as folder:
+    ...     study = check_study(write_demo(folder, n_subjects=6))
+    >>> len(study.subjects), study.reference, study.test_methods
+    (6, 'reference-fit', ('quickmap',))
+    """
+    return load_study(source)
+
+
 def _check_named_methods(values: pd.DataFrame, settings: StudySettings, log: ProblemLog) -> None:
     """Methods the study file names (``[findings] magnitude_only_methods``) must be test
     methods of the values table: found when the study is checked, not after the analysis."""
-    from cohort.domain.thresholds import parse_swap_options
-
-    named = parse_swap_options(settings.extra.get("findings")).magnitude_only_methods
+    named = settings.swap.magnitude_only_methods
     present = set(values["method"].astype(str))
     tests = sorted(present - {settings.reference})
     for method in named:
@@ -243,7 +260,7 @@ def _check_named_methods(values: pd.DataFrame, settings: StudySettings, log: Pro
                 "study-option",
                 "[findings] magnitude_only_methods names a method that is not a test method "
                 "of the values table",
-                file=settings.input_name(settings.study_file) or "study settings",
+                file=settings.source_name,
                 column="magnitude_only_methods",
                 value=method,
                 expected=f"one of {tests}",
@@ -469,23 +486,7 @@ def _settle(records: pd.DataFrame, settings: StudySettings) -> np.ndarray:
         )
         unpaired = used & ~partner
         if unpaired.any():
-            partner_excluded = np.where(
-                is_ref, np.isin(key, key[excluded & ~is_ref]), np.isin(key, key[excluded & is_ref])
-            )
-            reason = np.where(
-                is_ref,
-                np.where(
-                    partner_excluded,
-                    "the other methods' values for this segment are excluded",
-                    "no other method has a value for this segment",
-                ),
-                np.where(
-                    partner_excluded,
-                    "the reference value for this segment is excluded",
-                    "the reference method has no value for this segment",
-                ),
-            )
-            _exclude(records, unpaired, reason)
+            _exclude(records, unpaired, _unpaired_reasons(key, is_ref, excluded))
             used, excluded = used & ~unpaired, excluded | unpaired
             continue
         if referencing == "none" or not (used & is_field).any():
@@ -513,6 +514,26 @@ def _settle(records: pd.DataFrame, settings: StudySettings) -> np.ndarray:
         used, excluded = used & ~unreferenced, excluded | unreferenced
     shift[~used] = np.nan
     return shift
+
+
+def _unpaired_reasons(key: np.ndarray, is_ref: np.ndarray, excluded: np.ndarray) -> np.ndarray:
+    """Why each record would be unpaired: its partner is excluded, or there is none."""
+    partner_excluded = np.where(
+        is_ref, np.isin(key, key[excluded & ~is_ref]), np.isin(key, key[excluded & is_ref])
+    )
+    return np.where(
+        is_ref,
+        np.where(
+            partner_excluded,
+            "the other methods' values for this segment are excluded",
+            "no other method has a value for this segment",
+        ),
+        np.where(
+            partner_excluded,
+            "the reference value for this segment is excluded",
+            "the reference method has no value for this segment",
+        ),
+    )
 
 
 def _exclude(records: pd.DataFrame, mask: np.ndarray, reason: np.ndarray) -> None:

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import hashlib
 import json
 import platform
 import sys
@@ -10,7 +11,15 @@ from importlib import metadata
 from pathlib import Path
 from typing import Any
 
-from cohort.report.outputs import sha256
+
+def sha256(path: str | Path) -> str:
+    """SHA-256 of a file's bytes, as hex."""
+    digest = hashlib.sha256()
+    with Path(path).open("rb") as handle:
+        for block in iter(lambda: handle.read(1 << 20), b""):
+            digest.update(block)
+    return digest.hexdigest()
+
 
 PACKAGES = (
     "cohort",

@@ -15,9 +15,10 @@ import pandas as pd
 import pytest
 
 from cohort.analysis.findings import evaluate_findings
-from cohort.analysis.groups import subject_summaries
+from cohort.analysis.subject_summaries import subject_summaries
 from cohort.cli import main
-from cohort.io.settings import Checks
+from cohort.domain.options import Checks
+from cohort.domain.thresholds import SwapOptions
 from cohort.io.study import load_study
 
 from ..conftest import HEADER, coded, problems_of, small_subjects, small_values, write_csv
@@ -406,7 +407,7 @@ def test_every_used_value_is_in_a_pair_and_nothing_else_is(make_study):
 def test_a_magnitude_only_method_that_is_not_a_test_method_is_refused_at_check(make_study):
     # found by `cohort check`, not after the analysis (it once crashed the run)
     settings = make_study(values=small_values())
-    settings = settings.with_options(extra={"findings": {"magnitude_only_methods": ["nope"]}})
+    settings = settings.with_options(swap=SwapOptions(magnitude_only_methods=("nope",)))
     problems = problems_of(settings)
     found = coded(problems, "study-option")
     assert found[0].value == "nope" and found[0].column == "magnitude_only_methods"

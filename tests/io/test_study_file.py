@@ -22,11 +22,13 @@ from pathlib import Path
 
 import pytest
 
+from cohort.analysis.pipeline import options_from_study
 from cohort.cli import main
 from cohort.demo import STUDY_TOML, write_demo
 from cohort.domain import options as opts
+from cohort.domain.options import CHECK_RULES, Checks
 from cohort.domain.problems import StudyError
-from cohort.io.settings import CHECK_RULES, Checks, build_settings, read_study_file
+from cohort.io.settings import build_settings, read_study_file
 from cohort.io.study import load_study
 
 ROOT = Path(__file__).resolve().parents[2]
@@ -335,13 +337,13 @@ def test_overrides_are_checked_like_the_file(tmp_path):
     for override in ({"n_boot": 1}, {"n_boot": 20.0}, {"seed": -1}, {"seed": True},
                      {"workers": -1}, {"confidence_level": 1.0}, {"strata": ("sex",)}):  # fmt: skip
         with pytest.raises(StudyError) as info:
-            opts.options_from_study(study, **override)
+            options_from_study(study, **override)
         (problem,) = info.value.problems
         assert problem.file == "command line" and next(iter(override)) in problem.detail
-    assert opts.options_from_study(study, n_boot=0).n_boot == 0  # 0 = analytic intervals only
-    assert opts.options_from_study(study, n_boot=opts.MIN_N_BOOT).n_boot == opts.MIN_N_BOOT
+    assert options_from_study(study, n_boot=0).n_boot == 0  # 0 = analytic intervals only
+    assert options_from_study(study, n_boot=opts.MIN_N_BOOT).n_boot == opts.MIN_N_BOOT
     with pytest.raises(TypeError, match="unknown options"):
-        opts.options_from_study(study, n_bootstrap=20)
+        options_from_study(study, n_bootstrap=20)
 
 
 def test_flag_form_obeys_the_same_rules():
@@ -416,7 +418,7 @@ def test_documented_and_demo_study_files_pass(tmp_path):
 def test_the_bootstrap_floor_and_integers(tmp_path):
     for value in (0, opts.MIN_N_BOOT, 2000, opts.MAX_N_BOOT):
         path = write(tmp_path, f"[analysis]\nn_boot = {value}\nseed = 0\nworkers = 0\n")
-        assert read_study_file(path).extra["analysis"]["n_boot"] == value
+        assert read_study_file(path).options.n_boot == value
 
 
 # --- one place for each fact ------------------------------------------------------------------

@@ -10,7 +10,8 @@ import pytest
 
 from cohort.parallel import can_fork
 from cohort.report import outputs
-from cohort.report.outputs import guard_text, write_tables
+from cohort.report.formula_guard import guard_text
+from cohort.report.outputs import write_tables
 
 
 def test_text_that_a_spreadsheet_would_run_is_quoted():
