@@ -1,14 +1,13 @@
-"""The whole analysis of a study, as one pure function, and the run that writes it out.
+"""The whole analysis of a study, as one pure function: ``analyse(study, options)``.
 
-``analyse(study, options)`` computes every table of the report from a loaded study (no I/O);
-``run(...)`` loads, analyses and writes the output folder atomically (see
-:mod:`cohort.report.outputs`). The command line, the report and notebooks call these.
+``analyse`` computes every table of the report from a loaded study (no I/O) and returns an
+:class:`Analysis`, a container naming its tables (:data:`TABLES`). Writing them out is
+:func:`cohort.report.runner.run`. The command line, the report and notebooks call these.
 
-Options come from the ``[analysis]`` table of the study file (checked when the file is read;
-format and rules in :mod:`cohort.domain.options`); :class:`RunOptions` and
-:func:`options_from_study`
-live there and are re-exported here. Command-line options (``--seed``, ``--bootstrap``,
-``--workers``) override the study file and obey the same rules.
+Options are the study file's ``[analysis]`` table, parsed when the file was read
+(:attr:`cohort.io.settings.StudySettings.options`; format and rules in
+:mod:`cohort.domain.options`); :func:`options_from_study` applies a run's overrides
+(``--seed``, ``--bootstrap``, ``--workers``), which obey the same rules.
 """
 
 from __future__ import annotations
@@ -17,33 +16,67 @@ import time
 import warnings
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field, replace
+from types import MappingProxyType
 from typing import Any
 
 import pandas as pd
 
 from cohort.analysis.agreement_table import agreement_table
-from cohort.analysis.detection import (
-    deceptive_agreement,
-    finding_strata,
-    findings_agreement,
-    missed_findings,
-)
+from cohort.analysis.alerts import deceptive_agreement
+from cohort.analysis.display import display_tables
+from cohort.analysis.finding_agreement import finding_strata, findings_agreement, missed_findings
 from cohort.analysis.findings import FindingsResult, evaluate_findings
-from cohort.analysis.groups import study_group_comparison
-from cohort.analysis.swaps import swap_screen_with
-from cohort.domain.options import RunOptions, options_from_study
+from cohort.analysis.group_comparison import study_group_comparison
+from cohort.analysis.swaps import SwapScreen, swap_screen_with
+from cohort.domain.options import RunOptions, override_options
 from cohort.domain.problems import problems_frame
-from cohort.domain.segments import SEGMENTS
-from cohort.domain.thresholds import SwapOptions, parse_findings_table, thresholds_table
+from cohort.domain.thresholds import SwapOptions, thresholds_table
 from cohort.io.study import Study
 from cohort.stats.results import CohortWarning
 
 Progress = Callable[[str], None]
 
+TABLES: Mapping[str, str] = MappingProxyType(
+    {
+        "agreement": "every agreement statistic per parameter, method and stratum",
+        "thresholds": "the finding thresholds in force, with their sources",
+        "findings_segment": "each segment classified per method and finding",
+        "findings_territory": "each coronary territory classified per method and finding",
+        "findings_subject": "each subject classified per method and finding",
+        "findings_agreement": "finding-level agreement of each test method with the reference",
+        "missed_findings": "reference-positive units missed and extra positives",
+        "swap_screen": "fat-water swap screen: counts per method",
+        "swap_flags": "fat-water swap screen: the flagged pairs",
+        "subjects_per_group": "subjects per group and field strength",
+        "coverage": "subjects with a usable value per method, parameter and segment",
+        "missing_values": "blank cells per method, parameter and segment",
+        "exclusions": "input records not used, each with its reason",
+        "input_warnings": "input problems that did not stop the study",
+        "record_accounting": "input records by status (used, missing, excluded)",
+    }
+)
+"""The tables an :class:`Analysis` names (and the output folder's ``tables/`` holds), in
+order; the group comparison's tables (``group_comparison``, ``group_descriptives``, ...; see
+:meth:`cohort.analysis.group_comparison.GroupComparison.tables`) follow ``swap_flags``."""
+
 
 @dataclass
 class Analysis:
-    """Everything a report shows: named tidy tables plus the alerts to show first."""
+    """Everything a report shows: the run's tables by name (:data:`TABLES`) plus the alerts
+    to show first.
+
+    Attributes
+    ----------
+    study : the analysed :class:`~cohort.io.study.Study`.
+    options : the :class:`~cohort.domain.options.RunOptions` in force.
+    findings : the classification of every unit (:class:`FindingsResult`).
+    tables : tidy tables by name, in the order of :data:`TABLES`.
+    alerts : deceptive-agreement and swap warnings, to read first.
+    display : the summaries the figures draw (:func:`cohort.analysis.display.display_tables`),
+        empty when the run draws no figures; not written as tables.
+    warnings : warnings raised by the estimators (each once) and the group model used.
+    timings : seconds per step.
+    """
 
     study: Study
     options: RunOptions
@@ -52,95 +85,71 @@ class Analysis:
     alerts: list[str] = field(default_factory=list)
     warnings: list[str] = field(default_factory=list)
     timings: dict[str, float] = field(default_factory=dict)
+    display: dict[str, pd.DataFrame] = field(default_factory=dict)
 
 
-def _segment_catalogue() -> pd.DataFrame:
-    return pd.DataFrame(
-        {
-            "segment": list(SEGMENTS),
-            "segment_name": [s.name for s in SEGMENTS.values()],
-            "ring": [s.ring for s in SEGMENTS.values()],
-            "territory": [s.territory for s in SEGMENTS.values()],
-        }
-    )
+def options_from_study(study: Study, **overrides: Any) -> RunOptions:
+    """The study's options (its ``[analysis]`` table, parsed when read), then ``overrides``
+    (those not None), each checked by its rule; raises
+    :class:`~cohort.domain.problems.StudyError` (see
+    :func:`cohort.domain.options.override_options`)."""
+    return override_options(study.settings.options, **overrides)
 
 
-def _present(options: SwapOptions, paired: pd.DataFrame) -> SwapOptions:
-    """The swap options without named methods that have no pair left (every value of theirs
-    was excluded: the exclusions table says why)."""
-    methods = set(paired["method"].astype(str))
-    kept = tuple(m for m in options.magnitude_only_methods if m in methods)
-    return replace(options, magnitude_only_methods=kept)
+class _Steps:
+    """Runs the steps of an analysis: says each, times it and keeps its warnings."""
+
+    def __init__(self, progress: Progress | None) -> None:
+        self.say = progress or (lambda message: None)
+        self.timings: dict[str, float] = {}
+        self.caught: list[warnings.WarningMessage] = []
+
+    def __call__(self, name: str, message: str, func: Callable[[], Any]) -> Any:
+        self.say(message)
+        start = time.perf_counter()
+        with warnings.catch_warnings(record=True) as record:
+            warnings.simplefilter("always", CohortWarning)
+            result = func()
+        self.caught.extend(record)
+        self.timings[name] = time.perf_counter() - start
+        return result
+
+    def messages(self) -> list[str]:
+        return list(dict.fromkeys(str(w.message) for w in self.caught))
 
 
 def analyse(
     study: Study, options: RunOptions | None = None, progress: Progress | None = None
 ) -> Analysis:
-    """Run every analysis of the report on a loaded study (pure: no files are written)."""
-    options = options or options_from_study(study)
-    say = progress or (lambda message: None)
-    timings: dict[str, float] = {}
-    caught: list[warnings.WarningMessage] = []
-    tables: dict[str, pd.DataFrame] = {}
+    """Run every analysis of the report on a loaded study (pure: no files are written).
 
-    def step(name: str, message: str, func: Callable[[], Any]) -> Any:
-        say(message)
-        start = time.perf_counter()
-        with warnings.catch_warnings(record=True) as record:
-            warnings.simplefilter("always", CohortWarning)
-            result = func()
-        caught.extend(record)
-        timings[name] = time.perf_counter() - start
-        return result
-
-    source = study.settings.input_name(study.settings.study_file) or "study settings"
-    definitions, swap_options = parse_findings_table(
-        study.settings.extra.get("findings"), file=source
-    )
+    ``options`` default to the study's own (:attr:`StudySettings.options`); ``progress``
+    is called with a message before each step.
+    """
+    options = options or study.settings.options
+    step = _Steps(progress)
+    definitions = study.settings.findings
     findings = step(
         "findings",
         "classifying findings",
         lambda: evaluate_findings(study.values, study.subjects, definitions),
     )
-    strata_masks = finding_strata(study.paired, findings)
     agreement = step(
         "agreement",
         f"agreement statistics (subject cluster bootstrap, B = {options.n_boot})",
-        lambda: agreement_table(
-            study.paired,
-            strata=options.strata,
-            n_boot=options.n_boot,
-            seed=options.seed,
-            confidence_level=options.confidence_level,
-            ratio_parameters=options.ratio_parameters,
-            error_ratio=options.error_ratio,
-            extra_strata=strata_masks,
-            regression_limits=options.regression_limits,
-            pb_max_pairs=options.pb_max_pairs,
-            workers=options.workers,
-        ),
+        lambda: _agreement(study, findings, options),
     )
     detection = step(
         "findings_agreement",
         f"finding-level agreement (B = {options.n_boot})",
-        lambda: (
-            findings_agreement(
-                findings,
-                study.reference,
-                groups=study.groups,
-                n_boot=options.n_boot,
-                seed=options.seed,
-                confidence_level=options.confidence_level,
-            ).table
-        ),
+        lambda: _findings_agreement(study, findings, options),
     )
     missed = step(
         "missed", "missed and extra findings", lambda: missed_findings(findings, study.reference)
     )
+    swap_options = _present(study.settings.swap, study.paired)
     swaps = step(
-        "swaps",
-        "fat-water swap screen",
-        lambda: swap_screen_with(study.paired, _present(swap_options, study.paired)),
+        "swaps", "fat-water swap screen", lambda: swap_screen_with(study.paired, swap_options)
     )
     alerts_found = step(
         "alerts",
@@ -153,52 +162,104 @@ def analyse(
             bias_ratio=options.bias_ratio,
         ),
     )
-    alerts = [a.message for a in alerts_found]
-    for row in swaps.counts.itertuples():
-        if row.n_flagged:
-            alerts.append(
-                f"fat-water swap screen: {row.n_flagged} of {row.n_pairs} fat-fraction pairs of "
-                f"{row.method} flagged ({row.n_swap_suspect} closer to 100 minus the reference, "
-                f"{row.n_not_comparable} not comparable with a magnitude-only method); see "
-                "tables/swap_flags.csv and exclude them explicitly if justified"
-            )
-    segment_findings = findings.segments[
-        ["subject", "group", "method", "finding", "segment", "positive"]
-    ]
-    subject_findings = findings.subjects[["subject", "group", "method", "finding", "positive"]]
+    alerts = [a.message for a in alerts_found] + _swap_alerts(swaps)
     comparison = step(
-        "groups",
-        "group comparisons",
-        lambda: study_group_comparison(
-            study,
-            subject_findings=subject_findings,
-            segment_findings=segment_findings,
-            correction=options.correction,
-            confidence_level=options.confidence_level,
-            seed=options.seed,
-            workers=options.workers,
-        ),
+        "groups", "group comparisons", lambda: _group_comparison(study, findings, options)
+    )
+    tables = {
+        "agreement": agreement,
+        "thresholds": thresholds_table(definitions),
+        "findings_segment": findings.segments,
+        "findings_territory": findings.territories,
+        "findings_subject": findings.subjects,
+        "findings_agreement": detection,
+        "missed_findings": missed,
+        "swap_screen": swaps.counts,
+        "swap_flags": swaps.flags,
+        **comparison.tables(),
+        **_quality_tables(study),
+    }
+    display = (
+        step("display", "display summaries", lambda: display_tables(study, findings.segments))
+        if options.figures
+        else {}
+    )
+    messages = [*step.messages(), f"group comparison: {comparison.model_path}"]
+    return Analysis(study, options, findings, tables, alerts, messages, step.timings, display)
+
+
+def _agreement(study: Study, findings: FindingsResult, options: RunOptions) -> pd.DataFrame:
+    return agreement_table(
+        study.paired,
+        strata=options.strata,
+        n_boot=options.n_boot,
+        seed=options.seed,
+        confidence_level=options.confidence_level,
+        ratio_parameters=options.ratio_parameters,
+        error_ratio=options.error_ratio,
+        extra_strata=finding_strata(study.paired, findings),
+        regression_limits=options.regression_limits,
+        pb_max_pairs=options.pb_max_pairs,
+        workers=options.workers,
     )
 
-    tables["agreement"] = agreement
-    tables["thresholds"] = thresholds_table(definitions)
-    tables["findings_segment"] = findings.segments
-    tables["findings_territory"] = findings.territories
-    tables["findings_subject"] = findings.subjects
-    tables["findings_agreement"] = detection
-    tables["missed_findings"] = missed
-    tables["swap_screen"] = swaps.counts
-    tables["swap_flags"] = swaps.flags
-    tables.update(comparison.tables())
-    tables["subjects_per_group"] = _subjects_per_group(study)
-    tables["coverage"] = study.coverage()
-    tables["missing_values"] = study.missing_values()
-    tables["exclusions"] = study.exclusions()
-    tables["input_warnings"] = problems_frame(study.warnings)
-    tables["record_accounting"] = pd.DataFrame([study.accounting()])
-    messages = list(dict.fromkeys(str(w.message) for w in caught))
-    messages.append(f"group comparison: {comparison.model_path}")
-    return Analysis(study, options, findings, tables, alerts, messages, timings)
+
+def _findings_agreement(
+    study: Study, findings: FindingsResult, options: RunOptions
+) -> pd.DataFrame:
+    return findings_agreement(
+        findings,
+        study.reference,
+        groups=study.groups,
+        n_boot=options.n_boot,
+        seed=options.seed,
+        confidence_level=options.confidence_level,
+    ).table
+
+
+def _group_comparison(study: Study, findings: FindingsResult, options: RunOptions) -> Any:
+    return study_group_comparison(
+        study,
+        subject_findings=findings.subjects[["subject", "group", "method", "finding", "positive"]],
+        segment_findings=findings.segments[
+            ["subject", "group", "method", "finding", "segment", "positive"]
+        ],
+        correction=options.correction,
+        confidence_level=options.confidence_level,
+        seed=options.seed,
+        workers=options.workers,
+    )
+
+
+def _present(options: SwapOptions, paired: pd.DataFrame) -> SwapOptions:
+    """The swap options without named methods that have no pair left (every value of theirs
+    was excluded: the exclusions table says why)."""
+    methods = set(paired["method"].astype(str))
+    kept = tuple(m for m in options.magnitude_only_methods if m in methods)
+    return replace(options, magnitude_only_methods=kept)
+
+
+def _swap_alerts(swaps: SwapScreen) -> list[str]:
+    return [
+        f"fat-water swap screen: {row.n_flagged} of {row.n_pairs} fat-fraction pairs of "
+        f"{row.method} flagged ({row.n_swap_suspect} closer to 100 minus the reference, "
+        f"{row.n_not_comparable} not comparable with a magnitude-only method); see "
+        "tables/swap_flags.csv and exclude them explicitly if justified"
+        for row in swaps.counts.itertuples()
+        if row.n_flagged
+    ]
+
+
+def _quality_tables(study: Study) -> dict[str, pd.DataFrame]:
+    """The tables of the study's inputs: subjects, coverage, missing and excluded values."""
+    return {
+        "subjects_per_group": _subjects_per_group(study),
+        "coverage": study.coverage(),
+        "missing_values": study.missing_values(),
+        "exclusions": study.exclusions(),
+        "input_warnings": problems_frame(study.warnings),
+        "record_accounting": pd.DataFrame([study.accounting()]),
+    }
 
 
 def _subjects_per_group(study: Study) -> pd.DataFrame:
@@ -213,7 +274,3 @@ def _subjects_per_group(study: Study) -> pd.DataFrame:
         ["group", "field_strength"], key=lambda c: c.map(order) if c.name == "group" else c
     )
     return table.reset_index(drop=True)
-
-
-def analysis_options(options: RunOptions) -> Mapping[str, Any]:
-    return options.to_dict()

@@ -21,13 +21,12 @@ import numpy as np
 import pandas as pd
 from matplotlib.axes import Axes
 from matplotlib.lines import Line2D
-from matplotlib.patches import Patch
 from matplotlib.ticker import FixedLocator, FuncFormatter, NullFormatter
 
 from cohort.domain.units import PARAMETERS
+from cohort.plots.limit_lines import _draw_limits, _get, _linear_text
 from cohort.plots.style import (
     AXIS_NAME_WIDTH,
-    BAND_COLOUR,
     CATEGORICAL,
     LINE_COLOUR,
     figure_size,
@@ -41,21 +40,6 @@ DENSITY_THRESHOLD = 5000
 
 DENSITY_GRIDSIZE = 45
 LIMIT_TYPES = ("auto", "constant", "regression")
-REGRESSION_KEYS = (
-    "bias_intercept",
-    "bias_slope",
-    "loa_low_intercept",
-    "loa_low_slope",
-    "loa_high_intercept",
-    "loa_high_slope",
-)
-"""Keys of regression-based limits: each line is ``intercept + slope * mean``."""
-
-_CI_KEYS = {
-    "bias": ("bias_ci_low", "bias_ci_high"),
-    "loa_low": ("loa_low_ci_low", "loa_low_ci_high"),
-    "loa_high": ("loa_high_ci_low", "loa_high_ci_high"),
-}
 
 
 def _axis_label(parameter: str) -> str:
@@ -189,28 +173,6 @@ def _decimals(scale: float) -> int:
     return int(min(4, max(0, 2 - math.floor(math.log10(scale)))))
 
 
-def _fixed(value: float, decimals: int) -> str:
-    """Fixed-point text with a typographic minus sign."""
-    text = f"{value:.{decimals}f}"
-    return text.replace("-", "\N{MINUS SIGN}")
-
-
-def _get(limits: Any, key: str) -> float | None:
-    if key not in limits:
-        return None
-    value = limits[key]
-    try:
-        return float(value)
-    except (TypeError, ValueError):
-        raise ValueError(f"limits[{key!r}] must be a number, got {value!r}") from None
-
-
-def _linear_text(intercept: float, slope: float, decimals: int, variable: str) -> str:
-    """``"1.090 x − 0.05"``-style text of ``intercept + slope * variable``."""
-    sign = "\N{MINUS SIGN}" if intercept < 0 else "+"
-    return f"{_fixed(slope, 3)} {variable} {sign} {_fixed(abs(intercept), decimals)}"
-
-
 def _blank(label: str = "") -> Line2D:
     return Line2D([], [], linestyle="none", marker="none", label=label)
 
@@ -273,8 +235,8 @@ def bland_altman_plot(
         A row of the agreement table: ``bias``, ``loa_low``, ``loa_high`` and optionally
         their CIs (``bias_ci_low``, ``bias_ci_high``, ``loa_low_ci_low``, ...,
         ``loa_high_ci_high``, shaded) and ``confidence_level``; optionally regression-based
-        limits as intercept/slope pairs (:data:`REGRESSION_KEYS`). Nothing is drawn but the
-        data if None.
+        limits as intercept/slope pairs (:data:`cohort.plots.limit_lines.REGRESSION_KEYS`).
+        Nothing is drawn but the data if None.
     groups, group_order
         A label per pair: Okabe-Ito colours and distinct markers per group.
     parameter
@@ -294,46 +256,73 @@ def bland_altman_plot(
     Returns
     -------
     matplotlib.axes.Axes
+
+    Examples
+    --------
+    >>> import matplotlib; matplotlib.use("Agg")
+    >>> limits = {"bias": 0.5, "loa_low": -1.0, "loa_high": 2.0}
+    >>> ax = bland_altman_plot([1.0, 2.0, 3.0], [1.5, 2.0, 4.0], limits=limits)
+    >>> [round(line.get_ydata()[0], 2) for line in ax.get_lines()]
+    [0.0, 0.5, -1.0, 2.0]
+    >>> plt.close(ax.figure)
     """
     axis_label = _axis_label(parameter)
     if limit_type not in LIMIT_TYPES:
         raise ValueError(f"limit_type must be one of {list(LIMIT_TYPES)}, got {limit_type!r}")
     ref, tst = _pairs(reference, test)
-    if ratio and ((ref <= 0).any() or (tst <= 0).any()):
-        raise ValueError(
-            "ratio=True needs positive reference and test values, got "
-            f"{int(((ref <= 0) | (tst <= 0)).sum())} pair(s) with a value <= 0"
-        )
+    if ratio:
+        _check_positive(ref, tst)
     labels, levels = _group_levels(groups, ref.size, group_order)
     use_density = _use_density(density, ref.size, labels is not None)
-    mean = (ref + tst) / 2.0
-    y = tst / ref if ratio else tst - ref
+    mean, y = (ref + tst) / 2.0, (tst / ref if ratio else tst - ref)
 
     context = style_context() if ax is None else contextlib.nullcontext()
     with context:
         if ax is None:
             _, ax = plt.subplots(figsize=figure_size("single", aspect=0.85))
         data_artists = _draw_data(ax, mean, y, labels, levels, use_density, ratio, dict(kwargs))
-        if ratio:
-            ax.set_yscale("log")
-        no_difference = 1.0 if ratio else 0.0
-        ax.axhline(no_difference, color="#888888", linewidth=0.6, linestyle=":", zorder=1)
-
-        group_handles = data_artists if labels is not None else []
-        line_handles = []
-        if limits is not None:
-            spread = float(np.ptp(y)) if y.size > 1 else float(abs(y[0]))
-            decimals = 3 if ratio else _decimals(spread)
-            line_handles = _draw_limits(ax, limits, mean, ratio, limit_type, decimals)
-        ref_text, test_text = fit_axis_name(reference_name), fit_axis_name(test_name)
-        ax.set_xlabel(_two_lines(f"mean of {ref_text}", f"and {test_text}, {axis_label}"))
-        if ratio:
-            ax.set_ylabel(_two_lines(f"ratio {test_text}", f"/ {ref_text}"))
-            _ratio_ticks(ax)
-        else:
-            ax.set_ylabel(_two_lines(f"{test_text} −", f"{ref_text}, {axis_label}"))
-        _legend_above(ax, line_handles, group_handles)
+        _no_difference_line(ax, ratio)
+        line_handles = [] if limits is None else _limits(ax, limits, mean, y, ratio, limit_type)
+        _label_bland_altman(ax, reference_name, test_name, axis_label, ratio)
+        _legend_above(ax, line_handles, data_artists if labels is not None else [])
     return ax
+
+
+def _no_difference_line(ax: Axes, ratio: bool) -> None:
+    """Dotted line at no difference (ratio 1 on a log axis)."""
+    if ratio:
+        ax.set_yscale("log")
+    no_difference = 1.0 if ratio else 0.0
+    ax.axhline(no_difference, color="#888888", linewidth=0.6, linestyle=":", zorder=1)
+
+
+def _limits(
+    ax: Axes, limits: Any, mean: np.ndarray, y: np.ndarray, ratio: bool, limit_type: str
+) -> list[Any]:
+    """The limit lines, their numbers given to about three significant digits of the spread."""
+    spread = float(np.ptp(y)) if y.size > 1 else float(abs(y[0]))
+    decimals = 3 if ratio else _decimals(spread)
+    return _draw_limits(ax, limits, mean, ratio, limit_type, decimals)
+
+
+def _check_positive(ref: np.ndarray, tst: np.ndarray) -> None:
+    if (ref <= 0).any() or (tst <= 0).any():
+        raise ValueError(
+            "ratio=True needs positive reference and test values, got "
+            f"{int(((ref <= 0) | (tst <= 0)).sum())} pair(s) with a value <= 0"
+        )
+
+
+def _label_bland_altman(
+    ax: Axes, reference_name: str, test_name: str, axis_label: str, ratio: bool
+) -> None:
+    ref_text, test_text = fit_axis_name(reference_name), fit_axis_name(test_name)
+    ax.set_xlabel(_two_lines(f"mean of {ref_text}", f"and {test_text}, {axis_label}"))
+    if ratio:
+        ax.set_ylabel(_two_lines(f"ratio {test_text}", f"/ {ref_text}"))
+        _ratio_ticks(ax)
+    else:
+        ax.set_ylabel(_two_lines(f"{test_text} −", f"{ref_text}, {axis_label}"))
 
 
 def _two_lines(first: str, second: str, width: int = 2 * AXIS_NAME_WIDTH) -> str:
@@ -362,112 +351,6 @@ def _ratio_ticks(ax: Axes) -> None:
     ax.yaxis.set_major_locator(FixedLocator(ticks))
     ax.yaxis.set_major_formatter(FuncFormatter(lambda v, _pos: f"{v:g}"))
     ax.yaxis.set_minor_formatter(NullFormatter())
-
-
-def _draw_limits(
-    ax: Axes, limits: Any, mean: np.ndarray, ratio: bool, limit_type: str, decimals: int
-) -> list[Any]:
-    if not (isinstance(limits, Mapping) or isinstance(limits, pd.Series)):
-        raise ValueError(
-            f"limits must be a mapping (a row of the agreement table), got {type(limits).__name__}"
-        )
-    regression = {k: _get(limits, k) for k in REGRESSION_KEYS}
-    has_regression = all(v is not None and math.isfinite(v) for v in regression.values())
-    if limit_type == "regression" and not has_regression:
-        absent = [k for k, v in regression.items() if v is None or not math.isfinite(v)]
-        raise ValueError(f"limit_type='regression' needs finite limits keys {absent!r}")
-    use_regression = limit_type == "regression" or (limit_type == "auto" and has_regression)
-    level = _get(limits, "confidence_level")
-    ci_name = f"{level:.0%} CI" if level is not None and math.isfinite(level) else "CI"
-    handles: list[Any] = []
-
-    def fmt(v: float) -> str:
-        return _fixed(v, decimals)
-
-    if use_regression:
-        xs = np.linspace(float(mean.min()), float(mean.max()), 200)
-        for name, style, text in (
-            ("bias", "-", "bias"),
-            ("loa_low", "--", "limits of agreement"),
-            ("loa_high", "--", None),
-        ):
-            a, b = regression[f"{name}_intercept"], regression[f"{name}_slope"]
-            line_y = a + b * xs  # type: ignore[operator]
-            if ratio and (line_y <= 0).any():
-                raise ValueError(f"ratio=True needs positive {name} regression lines")
-            (line,) = ax.plot(
-                xs,
-                line_y,
-                color=LINE_COLOUR,
-                linestyle=style,
-                linewidth=1.0,
-                gid=f"{name}-regression",
-                zorder=3,
-            )
-            if name == "bias":
-                line.set_label(f"bias = {_linear_text(a, b, decimals, '× mean')}")  # type: ignore[arg-type]
-                handles.append(line)
-            elif text is not None:
-                line.set_label(f"{text} (regression on mean)")
-                handles.append(line)
-        return handles
-
-    required = {k: _get(limits, k) for k in ("bias", "loa_low", "loa_high")}
-    absent = [k for k, v in required.items() if v is None]
-    if absent:
-        raise ValueError(f"limits must hold keys {absent!r} for constant limits")
-    values = {k: float(v) for k, v in required.items()}  # type: ignore[arg-type]
-    if ratio:
-        nonpositive = [k for k, v in values.items() if math.isfinite(v) and v <= 0]
-        if nonpositive:
-            raise ValueError(f"ratio=True needs positive limits, got {nonpositive!r} <= 0")
-    band_drawn = False
-    band_missing = []
-    for name, style in (("bias", "-"), ("loa_low", "--"), ("loa_high", "--")):
-        value = values[name]
-        if math.isfinite(value):
-            ax.axhline(value, color=LINE_COLOUR, linestyle=style, linewidth=1.0, gid=name, zorder=3)
-        low, high = (_get(limits, k) for k in _CI_KEYS[name])
-        if low is not None and high is not None:
-            if math.isfinite(low) and math.isfinite(high):
-                ax.axhspan(
-                    low,
-                    high,
-                    facecolor=BAND_COLOUR,
-                    alpha=0.55,
-                    linewidth=0.0,
-                    zorder=0.5,
-                    gid=f"{name}-ci",
-                )
-                band_drawn = True
-            else:
-                band_missing.append(name)
-
-    if math.isfinite(values["bias"]):
-        bias_text = f"bias {fmt(values['bias'])}"
-        low, high = (_get(limits, k) for k in _CI_KEYS["bias"])
-        if low is not None and high is not None and math.isfinite(low) and math.isfinite(high):
-            bias_text += f" ({ci_name} {fmt(low)} to {fmt(high)})"
-    else:
-        bias_text = "bias not estimable"
-    handles.append(Line2D([], [], color=LINE_COLOUR, linestyle="-", label=bias_text))
-    if math.isfinite(values["loa_low"]) and math.isfinite(values["loa_high"]):
-        loa_text = f"limits of agreement {fmt(values['loa_low'])} to {fmt(values['loa_high'])}"
-    else:
-        loa_text = "limits of agreement not estimable"
-    handles.append(Line2D([], [], color=LINE_COLOUR, linestyle="--", label=loa_text))
-    if band_drawn:
-        handles.append(Patch(facecolor=BAND_COLOUR, alpha=0.55, label=f"{ci_name} (shaded)"))
-    if band_missing:
-        handles.append(
-            Line2D(
-                [],
-                [],
-                linestyle="none",
-                label=f"{ci_name} not estimable: {', '.join(band_missing)}",
-            )
-        )
-    return handles
 
 
 def method_scatter(
@@ -505,27 +388,24 @@ def method_scatter(
     -------
     matplotlib.axes.Axes
         Equal aspect and equal x and y limits, so the identity line is the diagonal.
+
+    Examples
+    --------
+    >>> import matplotlib
+    >>> matplotlib.use("Agg")
+    >>> line = {"slope": 1.1, "intercept": -0.2, "procedure": "Passing-Bablok"}
+    >>> ax = method_scatter([1.0, 2.0, 3.0], [1.0, 2.1, 3.2], line=line, ccc=0.98)
+    >>> ax.get_xlim() == ax.get_ylim(), ax.get_legend().get_texts()[-1].get_text()
+    (True, 'CCC = 0.980')
+    >>> plt.close(ax.figure)
     """
     axis_label = _axis_label(parameter)
     ref, tst = _pairs(reference, test)
     labels, levels = _group_levels(groups, ref.size, group_order)
     use_density = _use_density(density, ref.size, labels is not None)
-    fit = None
-    if line is not None:
-        if not (isinstance(line, Mapping) or isinstance(line, pd.Series)):
-            raise ValueError(f"line must be a mapping, got {type(line).__name__}")
-        slope, intercept = _get(line, "slope"), _get(line, "intercept")
-        if slope is None or intercept is None:
-            raise ValueError("line must hold keys 'slope' and 'intercept'")
-        if not (math.isfinite(slope) and math.isfinite(intercept)):
-            raise ValueError(
-                f"line slope and intercept must be finite, got {slope!r} and {intercept!r}"
-            )
-        procedure = str(line["procedure"]) if "procedure" in line else "fitted line"
-        fit = (slope, intercept, procedure)
+    fit = _fitted_line(line)
     if ccc is not None and not isinstance(ccc, int | float):
         raise ValueError(f"ccc must be a number, got {ccc!r}")
-
     lo = float(min(ref.min(), tst.min()))
     hi = float(max(ref.max(), tst.max()))
     pad = 0.05 * (hi - lo) if hi > lo else max(abs(hi) * 0.05, 1.0)
@@ -539,44 +419,68 @@ def method_scatter(
         if use_density:
             data_kwargs.setdefault("extent", (*lims, *lims))
         data_artists = _draw_data(ax, ref, tst, labels, levels, use_density, False, data_kwargs)
-        group_handles = data_artists if labels is not None else []
-        handles: list[Any] = []
-        identity = ax.axline(
-            (lims[0], lims[0]),
-            slope=1.0,
-            color="#888888",
-            linestyle=":",
-            linewidth=0.8,
-            label="identity",
-            gid="identity",
-            zorder=1,
-        )
-        handles.append(identity)
-        if fit is not None:
-            slope, intercept, procedure = fit
-            decimals = _decimals(hi - lo) + 1
-            fitted = ax.axline(
-                (0.0, intercept),
-                slope=slope,
-                color=LINE_COLOUR,
-                linewidth=1.0,
-                label=f"{procedure}: y = {_linear_text(intercept, slope, decimals, 'x')}",
-                gid="fit",
-                zorder=3,
-            )
-            handles.append(fitted)
+        handles = _scatter_lines(ax, lims, fit, _decimals(hi - lo) + 1)
         if ccc is not None:
-            if math.isfinite(ccc):
-                text = f"CCC = {ccc:.3f}"
-                if ccc_ci is not None and all(math.isfinite(v) for v in ccc_ci):
-                    text += f" ({ccc_ci[0]:.3f} to {ccc_ci[1]:.3f})"
-            else:
-                text = "CCC not estimable"
-            handles.append(Line2D([], [], linestyle="none", label=text))
+            handles.append(Line2D([], [], linestyle="none", label=_ccc_text(ccc, ccc_ci)))
         ax.set_xlim(lims)
         ax.set_ylim(lims)
         ax.set_aspect("equal", adjustable="box")
         ax.set_xlabel(f"{fit_axis_name(reference_name)}, {axis_label}")
         ax.set_ylabel(f"{fit_axis_name(test_name)}, {axis_label}")
-        _legend_above(ax, handles, group_handles)
+        _legend_above(ax, handles, data_artists if labels is not None else [])
     return ax
+
+
+def _fitted_line(line: Any) -> tuple[float, float, str] | None:
+    """Slope, intercept and procedure of a given line (None when none is given)."""
+    if line is None:
+        return None
+    if not (isinstance(line, Mapping) or isinstance(line, pd.Series)):
+        raise ValueError(f"line must be a mapping, got {type(line).__name__}")
+    slope, intercept = _get(line, "slope"), _get(line, "intercept")
+    if slope is None or intercept is None:
+        raise ValueError("line must hold keys 'slope' and 'intercept'")
+    if not (math.isfinite(slope) and math.isfinite(intercept)):
+        raise ValueError(
+            f"line slope and intercept must be finite, got {slope!r} and {intercept!r}"
+        )
+    procedure = str(line["procedure"]) if "procedure" in line else "fitted line"
+    return slope, intercept, procedure
+
+
+def _scatter_lines(
+    ax: Axes, lims: tuple[float, float], fit: tuple[float, float, str] | None, decimals: int
+) -> list[Any]:
+    """The identity line and the fitted line, if any; returns their legend handles."""
+    identity = ax.axline(
+        (lims[0], lims[0]),
+        slope=1.0,
+        color="#888888",
+        linestyle=":",
+        linewidth=0.8,
+        label="identity",
+        gid="identity",
+        zorder=1,
+    )
+    if fit is None:
+        return [identity]
+    slope, intercept, procedure = fit
+    fitted = ax.axline(
+        (0.0, intercept),
+        slope=slope,
+        color=LINE_COLOUR,
+        linewidth=1.0,
+        label=f"{procedure}: y = {_linear_text(intercept, slope, decimals, 'x')}",
+        gid="fit",
+        zorder=3,
+    )
+    return [identity, fitted]
+
+
+def _ccc_text(ccc: float, ccc_ci: tuple[float, float] | None) -> str:
+    if not math.isfinite(ccc):
+        return "CCC not estimable"
+    text = f"CCC = {ccc:.3f}"
+    if ccc_ci is not None and all(math.isfinite(v) for v in ccc_ci):
+        text += f" ({ccc_ci[0]:.3f} to {ccc_ci[1]:.3f})"
+    return text

@@ -128,131 +128,187 @@ def group_distribution_plot(
     Returns
     -------
     matplotlib.axes.Axes
+
+    Examples
+    --------
+    >>> import matplotlib; matplotlib.use("Agg")
+    >>> summary = pd.DataFrame({"subject": ["a", "b", "c", "d"], "group": ["x", "x", "y", "y"],
+    ...                         "value": [1.0, 2.0, 3.0, 5.0]})
+    >>> ax = group_distribution_plot(summary, method=None, parameter="ff")
+    >>> [t.get_text().splitlines() for t in ax.get_xticklabels()]
+    [['x', '(n = 2)'], ['y', '(n = 2)']]
+    >>> plt.close(ax.figure)
     """
-    if kind not in DISTRIBUTION_KINDS:
-        raise ValueError(f"kind must be one of {list(DISTRIBUTION_KINDS)}, got {kind!r}")
-    if not (math.isfinite(jitter) and 0 <= jitter <= 1):
-        raise ValueError(f"jitter must be a fraction of the box width in [0, 1], got {jitter!r}")
+    _check_options(kind, jitter)
     _check_table(summary, [value, group, method])
     numbers = _finite_values(summary, value)
     label = _value_label(summary, value, parameter)
     groups = summary[group].to_numpy(dtype=object)
     group_levels = _order(summary, group, order, "order")
-    if method is not None:
-        methods = summary[method].to_numpy(dtype=object)
-        method_levels = _order(summary, method, method_order, "method_order")
-    else:
-        if method_order is not None:
-            raise ValueError("method_order needs method to name a column, got method=None")
-        methods = np.full(len(summary), None, dtype=object)
-        method_levels = [None]
+    methods, method_levels = _method_levels(summary, method, method_order)
     styles = group_styles(method_levels)
-    count_subjects = subject is not None and subject in summary.columns
+    counted = subject if subject is not None and subject in summary.columns else None
     rng = np.random.default_rng(seed)
-    slot = 0.8 / len(method_levels)
-    width = 0.75 * slot
 
     context = style_context() if ax is None else contextlib.nullcontext()
     with context:
         if ax is None:
             _, ax = plt.subplots(figsize=figure_size("single", aspect=0.75))
-        tick_labels = []
-        for i, g in enumerate(group_levels):
-            in_group = groups == g
-            text = fit_label(g)
-            if count_subjects:
-                text += f"\n(n = {summary.loc[in_group, subject].nunique()})"
-            tick_labels.append(text)
-            for k, m in enumerate(method_levels):
-                mask = in_group & (methods == m) if m is not None else in_group
-                data = numbers[mask]
-                if data.size == 0:
-                    continue
-                position = i + (k - (len(method_levels) - 1) / 2.0) * slot
-                colour, marker = styles[m]
-                tag = f"{g}" if m is None else f"{g}-{m}"
-                if kind == "box":
-                    bp = ax.boxplot(
-                        [data],
-                        positions=[position],
-                        widths=width,
-                        patch_artist=True,
-                        showfliers=False,  # every point is drawn anyway
-                        manage_ticks=False,
-                        zorder=1,
-                        medianprops={"color": LINE_COLOUR, "linewidth": 1.0},
-                        whiskerprops={"color": colour, "linewidth": 0.8},
-                        capprops={"color": colour, "linewidth": 0.8},
-                        boxprops={"edgecolor": colour, "linewidth": 0.8},
-                    )
-                    box = bp["boxes"][0]
-                    box.set_facecolor((*to_rgb(colour), 0.25))
-                    box.set_gid(f"box-{tag}")
-                elif np.unique(data).size >= 2:
-                    vp = ax.violinplot(
-                        [data],
-                        positions=[position],
-                        widths=width,
-                        showmedians=True,
-                        showextrema=False,
-                    )
-                    body = vp["bodies"][0]
-                    body.set_facecolor(colour)
-                    body.set_edgecolor(colour)
-                    body.set_alpha(0.3)
-                    body.set_gid(f"violin-{tag}")
-                    vp["cmedians"].set_color(LINE_COLOUR)
-                    vp["cmedians"].set_linewidth(1.0)
-                else:
-                    warnings.warn(
-                        f"violin not drawn for {tag}: fewer than 2 distinct values "
-                        f"({data.size} point(s) drawn)",
-                        CohortWarning,
-                        stacklevel=2,
-                    )
-                offsets = rng.uniform(-0.5, 0.5, data.size) * width * jitter
-                point_kwargs: dict[str, object] = {
-                    "s": 10.0,
-                    "alpha": 0.85,
-                    "linewidths": 0.3,
-                    "edgecolors": "white",
-                    "zorder": 3,
-                }
-                point_kwargs.update(kwargs)
-                ax.scatter(
-                    position + offsets,
-                    data,
-                    color=colour,
-                    marker=marker,
-                    gid=f"points-{tag}",
-                    **point_kwargs,
-                )
-        ax.set_xticks(range(len(group_levels)), tick_labels)
-        ax.set_xlim(-0.6, len(group_levels) - 0.4)
-        ax.set_ylabel(label)
-        ax.tick_params(axis="x", length=0)
+        cells = (numbers, groups, methods, group_levels, method_levels)
+        _draw_cells(ax, kind, cells, styles, rng, jitter, kwargs)
+        _group_axis(ax, _tick_labels(summary, groups, group_levels, counted), label)
         if method is not None and len(method_levels) > 1:
-            # Box swatch and marker together, so methods stay apart in greyscale too.
-            handles = [
-                (
-                    Patch(facecolor=(*to_rgb(styles[m][0]), 0.25), edgecolor=styles[m][0]),
-                    Line2D([], [], linestyle="none", marker=styles[m][1], color=styles[m][0]),
-                )
-                for m in method_levels
-            ]
-            labels = [fit_label(m) for m in method_levels]
-            wide = max(len(line) for text in labels for line in text.split("\n")) > 12
-            ax.legend(
-                handles=handles,
-                labels=labels,
-                handler_map={tuple: HandlerTuple(ndivide=None, pad=0.0)},
-                loc="lower left",
-                bbox_to_anchor=(0.0, 1.02),
-                ncols=min(2 if wide else 4, len(handles)),
-                borderaxespad=0.0,
-                frameon=False,
-            )
+            _method_legend(ax, method_levels, styles)
     return ax
+
+
+def _draw_cells(
+    ax: Axes,
+    kind: str,
+    cells: tuple[np.ndarray, np.ndarray, np.ndarray, list[object], list[object]],
+    styles: dict,
+    rng: np.random.Generator,
+    jitter: float,
+    kwargs: dict[str, object],
+) -> None:
+    """A box or violin and the jittered points of each group (dodged by method)."""
+    numbers, groups, methods, group_levels, method_levels = cells
+    slot = 0.8 / len(method_levels)
+    width = 0.75 * slot
+    for i, g in enumerate(group_levels):
+        in_group = groups == g
+        for k, m in enumerate(method_levels):
+            data = numbers[in_group & (methods == m) if m is not None else in_group]
+            if data.size == 0:
+                continue
+            position = i + (k - (len(method_levels) - 1) / 2.0) * slot
+            tag = f"{g}" if m is None else f"{g}-{m}"
+            _draw_distribution(ax, kind, data, position, width, styles[m][0], tag)
+            offsets = rng.uniform(-0.5, 0.5, data.size) * width * jitter
+            _draw_points(ax, position + offsets, data, styles[m], tag, kwargs)
+
+
+def _check_options(kind: str, jitter: float) -> None:
+    if kind not in DISTRIBUTION_KINDS:
+        raise ValueError(f"kind must be one of {list(DISTRIBUTION_KINDS)}, got {kind!r}")
+    if not (math.isfinite(jitter) and 0 <= jitter <= 1):
+        raise ValueError(f"jitter must be a fraction of the box width in [0, 1], got {jitter!r}")
+
+
+def _tick_labels(
+    summary: pd.DataFrame, groups: np.ndarray, levels: Sequence[object], counted: str | None
+) -> list[str]:
+    """Group names, with the number of distinct ``counted`` (subjects) under each."""
+    labels = []
+    for g in levels:
+        text = fit_label(g)
+        if counted is not None:
+            text += f"\n(n = {summary.loc[groups == g, counted].nunique()})"
+        labels.append(text)
+    return labels
+
+
+def _group_axis(ax: Axes, tick_labels: list[str], label: str) -> None:
+    ax.set_xticks(range(len(tick_labels)), tick_labels)
+    ax.set_xlim(-0.6, len(tick_labels) - 0.4)
+    ax.set_ylabel(label)
+    ax.tick_params(axis="x", length=0)
+
+
+def _method_levels(
+    summary: pd.DataFrame, method: str | None, method_order: Sequence[object] | None
+) -> tuple[np.ndarray, list[object]]:
+    """The method of each row and the methods in drawing order (``[None]``: no methods)."""
+    if method is not None:
+        methods = summary[method].to_numpy(dtype=object)
+        return methods, _order(summary, method, method_order, "method_order")
+    if method_order is not None:
+        raise ValueError("method_order needs method to name a column, got method=None")
+    return np.full(len(summary), None, dtype=object), [None]
+
+
+def _draw_distribution(
+    ax: Axes, kind: str, data: np.ndarray, position: float, width: float, colour: str, tag: str
+) -> None:
+    """A box (Tukey) or a violin (Gaussian KDE) of one group and method."""
+    if kind == "box":
+        bp = ax.boxplot(
+            [data],
+            positions=[position],
+            widths=width,
+            patch_artist=True,
+            showfliers=False,  # every point is drawn anyway
+            manage_ticks=False,
+            zorder=1,
+            medianprops={"color": LINE_COLOUR, "linewidth": 1.0},
+            whiskerprops={"color": colour, "linewidth": 0.8},
+            capprops={"color": colour, "linewidth": 0.8},
+            boxprops={"edgecolor": colour, "linewidth": 0.8},
+        )
+        box = bp["boxes"][0]
+        box.set_facecolor((*to_rgb(colour), 0.25))
+        box.set_gid(f"box-{tag}")
+    elif np.unique(data).size >= 2:
+        vp = ax.violinplot(
+            [data], positions=[position], widths=width, showmedians=True, showextrema=False
+        )
+        body = vp["bodies"][0]
+        body.set_facecolor(colour)
+        body.set_edgecolor(colour)
+        body.set_alpha(0.3)
+        body.set_gid(f"violin-{tag}")
+        vp["cmedians"].set_color(LINE_COLOUR)
+        vp["cmedians"].set_linewidth(1.0)
+    else:
+        warnings.warn(
+            f"violin not drawn for {tag}: fewer than 2 distinct values "
+            f"({data.size} point(s) drawn)",
+            CohortWarning,
+            stacklevel=4,
+        )
+
+
+def _draw_points(
+    ax: Axes,
+    x: np.ndarray,
+    data: np.ndarray,
+    style: tuple[str, str],
+    tag: str,
+    kwargs: dict[str, object],
+) -> None:
+    point_kwargs: dict[str, object] = {
+        "s": 10.0,
+        "alpha": 0.85,
+        "linewidths": 0.3,
+        "edgecolors": "white",
+        "zorder": 3,
+    }
+    point_kwargs.update(kwargs)
+    colour, marker = style
+    ax.scatter(x, data, color=colour, marker=marker, gid=f"points-{tag}", **point_kwargs)
+
+
+def _method_legend(ax: Axes, method_levels: Sequence[object], styles: dict) -> None:
+    """Box swatch and marker together, so methods stay apart in greyscale too."""
+    handles = [
+        (
+            Patch(facecolor=(*to_rgb(styles[m][0]), 0.25), edgecolor=styles[m][0]),
+            Line2D([], [], linestyle="none", marker=styles[m][1], color=styles[m][0]),
+        )
+        for m in method_levels
+    ]
+    labels = [fit_label(m) for m in method_levels]
+    wide = max(len(line) for text in labels for line in text.split("\n")) > 12
+    ax.legend(
+        handles=handles,
+        labels=labels,
+        handler_map={tuple: HandlerTuple(ndivide=None, pad=0.0)},
+        loc="lower left",
+        bbox_to_anchor=(0.0, 1.02),
+        ncols=min(2 if wide else 4, len(handles)),
+        borderaxespad=0.0,
+        frameon=False,
+    )
 
 
 def paired_lines_plot(
@@ -295,8 +351,54 @@ def paired_lines_plot(
         lines of a group are one rasterised ``LineCollection`` with ``gid``
         ``"subjects-<group>"`` (segments in subject order) and its end points one scatter
         with ``gid`` ``"ends-<group>"``.
+
+    Examples
+    --------
+    >>> import matplotlib; matplotlib.use("Agg")
+    >>> summary = pd.DataFrame({"subject": ["a", "a", "b", "b"], "method": ["ref", "new"] * 2,
+    ...                         "value": [1.0, 1.5, 2.0, 1.8], "group": ["x", "x", "y", "y"]})
+    >>> ax = paired_lines_plot(summary, reference="ref", test="new")
+    >>> [[float(v) for v in line.get_ydata()] for line in ax.get_lines()]
+    [[1.0, 1.5], [2.0, 1.8]]
+    >>> plt.close(ax.figure)
     """
     _check_table(summary, [subject, method, value, group])
+    rows, wide, label = _paired_wide(summary, reference, test, subject, method, value, parameter)
+    subjects_in_order = list(pd.unique(rows[subject]))
+    subject_group, levels = _subject_groups(rows, subject, group, group_order, subjects_in_order)
+    styles = group_styles(levels)
+    n = len(subjects_in_order)
+    alpha = 0.8 if n <= 50 else max(0.05, 0.8 * math.sqrt(50 / n))
+
+    context = style_context() if ax is None else contextlib.nullcontext()
+    with context:
+        if ax is None:
+            _, ax = plt.subplots(figsize=figure_size("single", aspect=0.9))
+        line_kwargs: dict[str, Any] = {"linewidth": 0.8, "markersize": 3.5, "alpha": alpha}
+        line_kwargs.update(kwargs)
+        if n <= PAIRED_LINES_MAX:
+            _subject_lines(ax, wide, (reference, test), subject_group, styles, line_kwargs)
+        else:
+            _line_collections(ax, wide, reference, test, subject_group, levels, styles, line_kwargs)
+        ax.set_xticks([0.0, 1.0], [fit_label(reference, 18, 3), fit_label(test, 18, 3)])
+        ax.set_xlim(-0.25, 1.25)
+        ax.set_ylabel(label)
+        if group is not None:
+            _group_key(ax, levels, styles, subject_group.value_counts())
+    return ax
+
+
+def _paired_wide(
+    summary: pd.DataFrame,
+    reference: object,
+    test: object,
+    subject: str,
+    method: str,
+    value: str,
+    parameter: str | None,
+) -> tuple[pd.DataFrame, pd.DataFrame, str]:
+    """The rows of the two methods, checked, their values as subject x method, and the
+    axis label."""
     if reference == test:
         raise ValueError(f"reference and test must be different methods, got {reference!r} twice")
     present = set(pd.unique(summary[method]))
@@ -323,69 +425,73 @@ def paired_lines_plot(
             f"every subject needs both {reference!r} and {test!r}; "
             f"{len(incomplete)} subject(s) lack one, e.g. {incomplete[:3]!r}"
         )
-    subjects_in_order = list(pd.unique(rows[subject]))
-    if group is not None:
-        per_subject = rows.groupby(subject, sort=False)[group].nunique()
-        mixed = per_subject.index[per_subject > 1].tolist()
-        if mixed:
-            raise ValueError(f"each subject must be in one group, got several for {mixed[:3]!r}")
-        subject_group = rows.groupby(subject, sort=False)[group].first()
-        levels = _order(rows, group, group_order, "group_order")
-    else:
+    return rows, wide, label
+
+
+def _subject_groups(
+    rows: pd.DataFrame,
+    subject: str,
+    group: str | None,
+    group_order: Sequence[object] | None,
+    subjects_in_order: list,
+) -> tuple[pd.Series, list[object]]:
+    """The group of each subject and the groups in legend order (``[None]``: no groups)."""
+    if group is None:
         if group_order is not None:
             raise ValueError("group_order needs group to name a column, got group=None")
-        subject_group = pd.Series(None, index=subjects_in_order, dtype=object)
-        levels = [None]
-    styles = group_styles(levels)
-    n = len(subjects_in_order)
-    alpha = 0.8 if n <= 50 else max(0.05, 0.8 * math.sqrt(50 / n))
+        return pd.Series(None, index=subjects_in_order, dtype=object), [None]
+    per_subject = rows.groupby(subject, sort=False)[group].nunique()
+    mixed = per_subject.index[per_subject > 1].tolist()
+    if mixed:
+        raise ValueError(f"each subject must be in one group, got several for {mixed[:3]!r}")
+    subject_group = rows.groupby(subject, sort=False)[group].first()
+    return subject_group, _order(rows, group, group_order, "group_order")
 
-    context = style_context() if ax is None else contextlib.nullcontext()
-    with context:
-        if ax is None:
-            _, ax = plt.subplots(figsize=figure_size("single", aspect=0.9))
-        line_kwargs: dict[str, Any] = {"linewidth": 0.8, "markersize": 3.5, "alpha": alpha}
-        line_kwargs.update(kwargs)
-        if n <= PAIRED_LINES_MAX:
-            for s in subjects_in_order:
-                colour, marker = styles[subject_group[s]]
-                ax.plot(
-                    [0.0, 1.0],
-                    [wide.at[s, reference], wide.at[s, test]],
-                    color=colour,
-                    marker=marker,
-                    gid=f"subject-{s}",
-                    **line_kwargs,
-                )
-        else:
-            _line_collections(ax, wide, reference, test, subject_group, levels, styles, line_kwargs)
-        ax.set_xticks([0.0, 1.0], [fit_label(reference, 18, 3), fit_label(test, 18, 3)])
-        ax.set_xlim(-0.25, 1.25)
-        ax.set_ylabel(label)
-        if group is not None:
-            counts = subject_group.value_counts()
-            handles = [
-                Line2D(
-                    [],
-                    [],
-                    color=styles[g][0],
-                    marker=styles[g][1],
-                    linewidth=0.8,
-                    markersize=3.5,
-                    label=f"{fit_label(g)} (n = {int(counts.get(g, 0))})",
-                )
-                for g in levels
-            ]
-            # Beside the axes: the lines fill the whole height, so no corner is free.
-            ax.legend(
-                handles=handles,
-                loc="center left",
-                bbox_to_anchor=(1.02, 0.5),
-                ncols=1,
-                borderaxespad=0.0,
-                frameon=False,
-            )
-    return ax
+
+def _group_key(ax: Axes, levels: Sequence[object], styles: dict, counts: pd.Series) -> None:
+    handles = [
+        Line2D(
+            [],
+            [],
+            color=styles[g][0],
+            marker=styles[g][1],
+            linewidth=0.8,
+            markersize=3.5,
+            label=f"{fit_label(g)} (n = {int(counts.get(g, 0))})",
+        )
+        for g in levels
+    ]
+    # Beside the axes: the lines fill the whole height, so no corner is free.
+    ax.legend(
+        handles=handles,
+        loc="center left",
+        bbox_to_anchor=(1.02, 0.5),
+        ncols=1,
+        borderaxespad=0.0,
+        frameon=False,
+    )
+
+
+def _subject_lines(
+    ax: Axes,
+    wide: pd.DataFrame,
+    methods: tuple[object, object],
+    subject_group: pd.Series,
+    styles: dict,
+    line_kwargs: dict[str, Any],
+) -> None:
+    """One line artist per subject, in the order of ``subject_group``."""
+    reference, test = methods
+    for s in subject_group.index:
+        colour, marker = styles[subject_group[s]]
+        ax.plot(
+            [0.0, 1.0],
+            [wide.at[s, reference], wide.at[s, test]],
+            color=colour,
+            marker=marker,
+            gid=f"subject-{s}",
+            **line_kwargs,
+        )
 
 
 def _line_collections(

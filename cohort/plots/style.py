@@ -285,11 +285,32 @@ def colour_scale(
     colour steps mean equal differences; given asymmetric limits use a ``TwoSlopeNorm``
     centred at zero); for prevalence 0-100 % in 10 % bins (``BoundaryNorm``). ``extend``
     tells the colour bar whether values fall outside the limits (clipped colours).
+
+    Examples
+    --------
+    >>> scale = colour_scale("difference", [-2.0, 0.5, 3.0])
+    >>> (scale.norm.vmin, scale.norm.vmax, scale.extend)
+    (-3.0, 3.0, 'neither')
+    >>> colour_scale("value", [10.0, 20.0], vmax=15.0).extend
+    'max'
     """
     if kind not in COLOUR_SCALE_KINDS:
         raise ValueError(f"kind must be one of {list(COLOUR_SCALE_KINDS)}, got {kind!r}")
     data = np.asarray(list(values), dtype=float)
     data = data[np.isfinite(data)]
+    _check_limits(norm, vmin, vmax)
+    if kind == "prevalence":
+        return _prevalence_scale(data, cmap, norm, vmin, vmax)
+    default = SEQUENTIAL_CMAP if kind == "value" else DIVERGING_CMAP
+    cmap_out = cmap if isinstance(cmap, Colormap) else mpl.colormaps[cmap or default]
+    if norm is None:
+        norm = (
+            _value_norm(data, vmin, vmax) if kind == "value" else _difference_norm(data, vmin, vmax)
+        )
+    return ColourScale(kind, cmap_out, norm, _extend(data, norm))
+
+
+def _check_limits(norm: Normalize | None, vmin: float | None, vmax: float | None) -> None:
     if norm is not None and (vmin is not None or vmax is not None):
         raise ValueError("give either norm or vmin/vmax, not both")
     for name, limit in (("vmin", vmin), ("vmax", vmax)):
@@ -298,59 +319,64 @@ def colour_scale(
     if vmin is not None and vmax is not None and not vmin < vmax:
         raise ValueError(f"vmin must be below vmax, got vmin={vmin!r}, vmax={vmax!r}")
 
-    if kind == "prevalence":
-        if data.size and (data.min() < 0 or data.max() > 100):
-            raise ValueError(
-                "prevalence values must be percentages in 0-100, got range "
-                f"{data.min():g} to {data.max():g}"
-            )
-        base = cmap if isinstance(cmap, Colormap) else mpl.colormaps[cmap or PREVALENCE_CMAP]
-        if norm is None:
-            low = 0.0 if vmin is None else vmin
-            high = 100.0 if vmax is None else vmax
-            edges = [b for b in PREVALENCE_BOUNDARIES if low <= b <= high]
-            edges = sorted({low, *edges, high})
-            n_bins = len(edges) - 1
-            # Start above the near-white end so the lowest bin still reads as a colour.
-            colours = base(np.linspace(0.12, 1.0, n_bins))
-            cmap_out: Colormap = mpl.colors.ListedColormap(colours, name=f"{base.name}_binned")
-            norm = BoundaryNorm(edges, n_bins)
-        else:
-            cmap_out = base
-        return ColourScale(kind, cmap_out, norm, _extend(data, norm))
 
-    default = SEQUENTIAL_CMAP if kind == "value" else DIVERGING_CMAP
-    cmap_out = cmap if isinstance(cmap, Colormap) else mpl.colormaps[cmap or default]
-    if norm is None:
-        if kind == "value":
-            low = float(data.min()) if vmin is None and data.size else vmin
-            high = float(data.max()) if vmax is None and data.size else vmax
-            low = 0.0 if low is None else low
-            high = low + 1.0 if high is None else high
-            if not low < high:  # all values equal: a unit-wide scale around them
-                centre = low
-                half = max(abs(centre) * 0.05, 0.5)
-                low, high = centre - half, centre + half
-            norm = Normalize(low, high)
-        else:
-            if vmin is None and vmax is None:
-                half = float(np.max(np.abs(data))) if data.size else 1.0
-                half = half if half > 0 else 1.0
-                norm = Normalize(-half, half)
-            elif vmin is None or vmax is None:
-                half = abs(vmax if vmax is not None else vmin)  # type: ignore[arg-type]
-                if half == 0:
-                    raise ValueError("a difference scale needs a non-zero limit, got 0")
-                norm = Normalize(-half, half)
-            elif vmin == -vmax:
-                norm = Normalize(vmin, vmax)
-            else:
-                if not vmin < 0 < vmax:
-                    raise ValueError(
-                        f"difference limits must straddle zero, got vmin={vmin!r}, vmax={vmax!r}"
-                    )
-                norm = TwoSlopeNorm(vcenter=0.0, vmin=vmin, vmax=vmax)
-    return ColourScale(kind, cmap_out, norm, _extend(data, norm))
+def _prevalence_scale(
+    data: np.ndarray,
+    cmap: str | Colormap | None,
+    norm: Normalize | None,
+    vmin: float | None,
+    vmax: float | None,
+) -> ColourScale:
+    """Percentages in discrete bins at :data:`PREVALENCE_BOUNDARIES` between the limits."""
+    if data.size and (data.min() < 0 or data.max() > 100):
+        raise ValueError(
+            "prevalence values must be percentages in 0-100, got range "
+            f"{data.min():g} to {data.max():g}"
+        )
+    base = cmap if isinstance(cmap, Colormap) else mpl.colormaps[cmap or PREVALENCE_CMAP]
+    if norm is not None:
+        return ColourScale("prevalence", base, norm, _extend(data, norm))
+    low = 0.0 if vmin is None else vmin
+    high = 100.0 if vmax is None else vmax
+    edges = [b for b in PREVALENCE_BOUNDARIES if low <= b <= high]
+    edges = sorted({low, *edges, high})
+    n_bins = len(edges) - 1
+    # Start above the near-white end so the lowest bin still reads as a colour.
+    colours = base(np.linspace(0.12, 1.0, n_bins))
+    binned = mpl.colors.ListedColormap(colours, name=f"{base.name}_binned")
+    norm = BoundaryNorm(edges, n_bins)
+    return ColourScale("prevalence", binned, norm, _extend(data, norm))
+
+
+def _value_norm(data: np.ndarray, vmin: float | None, vmax: float | None) -> Normalize:
+    """Sequential limits: the range of the data where not given."""
+    low = float(data.min()) if vmin is None and data.size else vmin
+    high = float(data.max()) if vmax is None and data.size else vmax
+    low = 0.0 if low is None else low
+    high = low + 1.0 if high is None else high
+    if not low < high:  # all values equal: a unit-wide scale around them
+        centre = low
+        half = max(abs(centre) * 0.05, 0.5)
+        low, high = centre - half, centre + half
+    return Normalize(low, high)
+
+
+def _difference_norm(data: np.ndarray, vmin: float | None, vmax: float | None) -> Normalize:
+    """Diverging limits: symmetric about 0 unless both are given; always straddling 0."""
+    if vmin is None and vmax is None:
+        half = float(np.max(np.abs(data))) if data.size else 1.0
+        half = half if half > 0 else 1.0
+        return Normalize(-half, half)
+    if vmin is None or vmax is None:
+        half = abs(vmax if vmax is not None else vmin)  # type: ignore[arg-type]
+        if half == 0:
+            raise ValueError("a difference scale needs a non-zero limit, got 0")
+        return Normalize(-half, half)
+    if vmin == -vmax:
+        return Normalize(vmin, vmax)
+    if not vmin < 0 < vmax:
+        raise ValueError(f"difference limits must straddle zero, got vmin={vmin!r}, vmax={vmax!r}")
+    return TwoSlopeNorm(vcenter=0.0, vmin=vmin, vmax=vmax)
 
 
 def _extend(data: np.ndarray, norm: Normalize) -> str:

@@ -21,15 +21,16 @@ from collections.abc import Callable, Iterable
 from dataclasses import dataclass
 from datetime import UTC, datetime
 from pathlib import Path
+from typing import Any
 
 from cohort.analysis.pipeline import Analysis, RunOptions, analyse
 from cohort.io.settings import StudySettings
 from cohort.io.study import Study, load_study
 from cohort.parallel import resolve_workers
 from cohort.report.destination import OutputFolderError, raise_if_interrupted, writing_to
-from cohort.report.manifest import build_manifest, write_manifest
+from cohort.report.manifest import build_manifest, sha256, write_manifest
 from cohort.report.methods_text import methods_markdown
-from cohort.report.outputs import sha256, write_tables
+from cohort.report.outputs import write_tables
 from cohort.report.page import render_report
 
 Progress = Callable[[str], None]
@@ -86,9 +87,10 @@ def run(
 ) -> RunSummary:
     """Run the whole study and write the output folder ``out``; see the module docstring.
 
-    ``out`` is checked before the analysis (:func:`cohort.report.destination.check_destination`)
-    against the study's input files and ``protect`` (other files the caller read, such as a
-    key file); :class:`~cohort.report.destination.OutputFolderError` says why a folder is refused.
+    ``options`` default to the study's own (its ``[analysis]`` table). ``out`` is checked
+    before the analysis (:func:`cohort.report.destination.check_destination`) against the
+    study's input files and ``protect`` (other files the caller read, such as a key file);
+    :class:`~cohort.report.destination.OutputFolderError` says why a folder is refused.
     """
     tell = progress or (lambda message: None)
 
@@ -98,60 +100,20 @@ def run(
 
     started = _now()
     study = source if isinstance(source, Study) else load_study(source)
-    if options is None:
-        from cohort.analysis.pipeline import options_from_study
-
-        options = options_from_study(study)
-    inputs = {"values": study.settings.values, "subjects": study.settings.subjects}
-    if study.settings.study_file:
-        inputs["study_file"] = study.settings.study_file
+    options = options or study.settings.options
+    inputs = _inputs(study)
     before = {k: sha256(p) for k, p in inputs.items()}
     with writing_to(out, [*inputs.values(), *protect], force=force) as destination:
         staging = destination.staging
         analysis = analyse(study, options, progress=say)
         say("writing tables")
         written = write_tables(analysis.tables, staging, workers=options.workers)
-        records = []
-        if options.figures:
-            from cohort.figures.figure_set import make_figures
-
-            records = make_figures(
-                study,
-                analysis.tables,
-                staging / "figures",
-                progress=say,
-                workers=options.workers,
-            )
+        records = _figures(analysis, staging, say)
         methods = methods_markdown(analysis)
         (staging / "methods.md").write_text(methods, encoding="utf-8")
-        after = {k: sha256(p) for k, p in inputs.items()}
-        if after != before:
-            changed = ", ".join(k for k in inputs if before[k] != after[k])
-            raise OutputFolderError(
-                f"an input changed while the run read it ({changed}); nothing was written: "
-                "run again when the files are final"
-            )
+        after = _unchanged(inputs, before)
         outputs = [p.relative_to(staging).as_posix() for p in staging.rglob("*") if p.is_file()]
-        outputs += ["report.html", "manifest.json"]
-        manifest = build_manifest(
-            inputs=inputs,
-            digests=after,
-            input_names={
-                k: None if pseudonymized else study.settings.input_name(p)
-                for k, p in inputs.items()
-            },
-            settings=study.settings.to_dict(hide_paths=pseudonymized),
-            options={
-                **options.to_dict(),
-                "workers_used": resolve_workers(options.workers),
-                "pseudonymized": pseudonymized,
-            },
-            started=started,
-            finished=_now(),
-            warnings=[*analysis.alerts, *analysis.warnings, *(str(w) for w in study.warnings)],
-            outputs=outputs,
-            accounting=study.accounting(),
-        )
+        manifest = _manifest(analysis, inputs, after, started, pseudonymized, outputs)
         say("writing the report")
         report = render_report(analysis, records, methods, manifest)
         (staging / "report.html").write_text(report, encoding="utf-8")
@@ -160,11 +122,71 @@ def run(
         kept = destination.kept
     n_tables = sum(1 for p in written if p.suffix == ".csv")
     return RunSummary(
-        final,
-        final / "report.html",
-        analysis,
-        n_tables,
-        len(records),
-        tuple(analysis.alerts),
-        kept,
+        final, final / "report.html", analysis, n_tables, len(records),
+        tuple(analysis.alerts), kept,
+    )  # fmt: skip
+
+
+def _inputs(study: Study) -> dict[str, Path]:
+    """The files a run reads, by role."""
+    inputs = {"values": study.settings.values, "subjects": study.settings.subjects}
+    if study.settings.study_file:
+        inputs["study_file"] = study.settings.study_file
+    return inputs
+
+
+def _figures(analysis: Analysis, staging: Path, say: Progress) -> list[Any]:
+    """The figures of the report (none with ``figures = False``)."""
+    if not analysis.options.figures:
+        return []
+    from cohort.figures.figure_set import make_figures
+
+    return make_figures(
+        analysis.study,
+        {**analysis.tables, **analysis.display},
+        staging / "figures",
+        progress=say,
+        workers=analysis.options.workers,
+    )
+
+
+def _unchanged(inputs: dict[str, Path], before: dict[str, str]) -> dict[str, str]:
+    """The inputs' digests, refusing the run if one changed while it was read."""
+    after = {k: sha256(p) for k, p in inputs.items()}
+    if after != before:
+        changed = ", ".join(k for k in inputs if before[k] != after[k])
+        raise OutputFolderError(
+            f"an input changed while the run read it ({changed}); nothing was written: "
+            "run again when the files are final"
+        )
+    return after
+
+
+def _manifest(
+    analysis: Analysis,
+    inputs: dict[str, Path],
+    digests: dict[str, str],
+    started: str,
+    pseudonymized: bool,
+    written: list[str],
+) -> dict[str, Any]:
+    """The manifest of a run: inputs, settings, options, warnings, outputs."""
+    study, options = analysis.study, analysis.options
+    return build_manifest(
+        inputs=inputs,
+        digests=digests,
+        input_names={
+            k: None if pseudonymized else study.settings.input_name(p) for k, p in inputs.items()
+        },
+        settings=study.settings.to_dict(hide_paths=pseudonymized),
+        options={
+            **options.to_dict(),
+            "workers_used": resolve_workers(options.workers),
+            "pseudonymized": pseudonymized,
+        },
+        started=started,
+        finished=_now(),
+        warnings=[*analysis.alerts, *analysis.warnings, *(str(w) for w in study.warnings)],
+        outputs=[*written, "report.html", "manifest.json"],
+        accounting=study.accounting(),
     )

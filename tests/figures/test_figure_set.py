@@ -28,14 +28,15 @@ from matplotlib.colors import to_rgba
 
 from cohort.demo import write_demo
 from cohort.domain.units import PARAMETERS
+from cohort.figures import agreement as agreement_figures
 from cohort.figures import figure_set
-from cohort.figures.figure_set import (
-    FINDINGS_REQUIRED,
-    SECTIONS,
-    FigureRecord,
-    FigureSet,
-    make_figures,
-)
+from cohort.figures import findings as findings_figures
+from cohort.figures import maps as map_figures
+from cohort.figures import records as figure_records
+from cohort.figures import subjects as subject_figures
+from cohort.figures import tables as figure_tables
+from cohort.figures.figure_set import SECTIONS, FigureRecord, FigureSet, make_figures
+from cohort.figures.tables import FINDINGS_REQUIRED
 from cohort.io.study import load_study
 from cohort.parallel import can_fork
 from cohort.plots.bullseye import OUTLINE_COLOUR, OUTLINE_WIDTH
@@ -328,9 +329,9 @@ def test_empty_tables_skip_their_figures(study, tables, tmp_path):
     empty = {name: table.iloc[0:0] for name, table in tables.items()}
     reasons = {}
     for source in (
-        figure_set._agreement_figures(study, empty),
-        figure_set._prevalence_figures(study, empty),
-        figure_set._subject_figure(study, empty, ()),
+        agreement_figures._agreement_figures(study, empty),
+        findings_figures._prevalence_figures(study, empty),
+        subject_figures._subject_figure(study, empty, ()),
     ):
         for item in source:
             assert isinstance(item, figure_set.SkippedFigure), item.key
@@ -351,7 +352,7 @@ def test_arguments_are_checked(study, tables, tmp_path):
     with pytest.raises(ValueError, match="subjects_to_show must be a sequence"):
         make_figures(study, tables, tmp_path, subjects_to_show="HV001")
     with pytest.raises(ValueError, match=r"subjects_to_show names subjects not in the study"):
-        list(figure_set._subject_figure(study, tables, ["nobody"]))
+        list(subject_figures._subject_figure(study, tables, ["nobody"]))
 
 
 # --- what is drawn ------------------------------------------------------------------------
@@ -360,7 +361,7 @@ def test_arguments_are_checked(study, tables, tmp_path):
 def test_bland_altman_draws_the_table_row(study, tables):
     row = tables["agreement"].query("parameter == 'ff' and stratum == 'all'").iloc[0]
     pairs = study.paired[study.paired["parameter"] == "ff"]
-    drawn = figure_set._bland_altman(study, row, pairs, "k")
+    drawn = agreement_figures._bland_altman(study, row, pairs, "k")
     ax = drawn.fig.axes[0]
     lines = {line.get_gid(): line for line in ax.get_lines()}
     # the stratum "all" row, not the group row whose bias is 1 higher
@@ -376,7 +377,7 @@ def test_bland_altman_draws_the_table_row(study, tables):
 
 
 def test_median_map_colours_are_numpy_medians(study):
-    drawn = next(figure_set._median_figures(study))
+    drawn = next(map_figures._median_figures(study, {}))
     assert drawn.key == "bullseye_median_ff_by_group_method"
     v = study.values
     part = v[(v["parameter"] == "ff") & (v["group"] == "control") & (v["method"] == "quickmap")]
@@ -397,7 +398,7 @@ def test_median_map_colours_are_numpy_medians(study):
 
 
 def test_difference_maps_are_centred_at_zero(study):
-    for drawn in figure_set._difference_figures(study):
+    for drawn in map_figures._difference_figures(study, {}):
         norm = drawn.grid.mappable.norm
         assert norm.vmin == pytest.approx(-norm.vmax), drawn.key
         plt.close(drawn.fig)
@@ -415,7 +416,7 @@ def test_prevalence_outlines_segments_the_test_method_misses(study):
                 positive |= segment == 7 and k == 0  # 12.5 % in both methods
                 rows.append((s, "acute", method, segment, "hemorrhage", positive))
     table = pd.DataFrame(rows, columns=list(FINDINGS_REQUIRED))
-    (drawn,) = list(figure_set._prevalence_figures(study, {"findings_segment": table}))
+    (drawn,) = list(findings_figures._prevalence_figures(study, {"findings_segment": table}))
     polar = [ax for ax in drawn.fig.axes if ax.name == "polar"]
     reference_ax, test_ax = polar
     outlined = [
@@ -440,9 +441,9 @@ def test_default_subjects_are_reference_positive_in_id_order(study, tables):
     ]
     expected = sorted(positive["subject"].unique())[: figure_set.MAX_SUBJECTS_SHOWN]
     assert expected  # the demo plants hemorrhage in acute patients
-    chosen = figure_set._default_subjects(findings, "hemorrhage", study.reference)
+    chosen = subject_figures._default_subjects(findings, "hemorrhage", study.reference)
     assert chosen == expected
-    (drawn,) = list(figure_set._subject_figure(study, tables, ()))
+    (drawn,) = list(subject_figures._subject_figure(study, tables, ()))
     titles = [ax.get_title() for ax in drawn.fig.axes if ax.name == "polar" and ax.get_visible()]
     assert len(titles) == len(expected) * len(study.methods)
     assert [t.split(",")[0] for t in titles[:: len(study.methods)]] == expected
@@ -450,7 +451,7 @@ def test_default_subjects_are_reference_positive_in_id_order(study, tables):
 
 def test_named_subjects_are_drawn_six_to_a_figure(study, tables):
     named = sorted(study.subjects["subject"])[:7]
-    drawn = list(figure_set._subject_figure(study, tables, [*named, named[0]]))  # a repeat
+    drawn = list(subject_figures._subject_figure(study, tables, [*named, named[0]]))  # a repeat
     assert [d.key for d in drawn] == [
         "bullseye_subjects_r2star_part1",
         "bullseye_subjects_r2star_part2",
@@ -476,19 +477,19 @@ def test_column_names_match_the_tables_of_the_package():
     from cohort.analysis.findings import SEGMENT_COLUMNS
 
     used = [
-        *figure_set.AGREEMENT_REQUIRED,
-        *figure_set.LIMIT_CI_COLUMNS,
-        *figure_set.RATIO_COLUMNS.values(),
-        figure_set.CONFIDENCE_LEVEL,
-        figure_set.CI_METHOD,
-        figure_set.NOTE,
-        figure_set.CCC,
-        *figure_set.CCC_CI,
-        figure_set.PB_SLOPE,
-        figure_set.PB_INTERCEPT,
-        *figure_set.PB_SLOPE_CI,
-        *figure_set.PB_INTERCEPT_CI,
-        figure_set.PB_CI_METHOD,
+        *figure_tables.AGREEMENT_REQUIRED,
+        *figure_tables.LIMIT_CI_COLUMNS,
+        *figure_tables.RATIO_COLUMNS.values(),
+        figure_tables.CONFIDENCE_LEVEL,
+        figure_tables.CI_METHOD,
+        figure_tables.NOTE,
+        figure_tables.CCC,
+        *figure_tables.CCC_CI,
+        figure_tables.PB_SLOPE,
+        figure_tables.PB_INTERCEPT,
+        *figure_tables.PB_SLOPE_CI,
+        *figure_tables.PB_INTERCEPT_CI,
+        figure_tables.PB_CI_METHOD,
     ]
     assert [c for c in used if c not in AGREEMENT_COLUMNS] == []
     assert [c for c in FINDINGS_REQUIRED if c not in SEGMENT_COLUMNS] == []
@@ -504,11 +505,11 @@ def test_real_tables_of_the_package_are_drawn(study, tmp_path):
         agreement = agreement_table(study.paired, strata=("all",), n_boot=0)
         findings = evaluate_findings(study.values, study.subjects).segments
     tables = {"agreement": agreement, "findings_segment": findings}
-    gen = figure_set._agreement_figures(study, tables)
+    gen = agreement_figures._agreement_figures(study, tables)
     first = next(gen)
     assert first.key == "bland_altman_ff_quickmap"
     assert "No CI bands" in first.caption
-    (prevalence, *_) = list(figure_set._prevalence_figures(study, tables))
+    (prevalence, *_) = list(findings_figures._prevalence_figures(study, tables))
     assert prevalence.key == "bullseye_prevalence_hemorrhage_by_group_method"
 
 
@@ -584,6 +585,6 @@ def test_long_names_are_shortened_in_the_drawn_text(study, tmp_path):
     assert fit_label("a $x$ b") == "a \\$x\\$ b"  # escaped: not read as mathtext
     assert all(len(line) <= LABEL_WIDTH for line in fitted.replace("\\$", "$").split("\n"))
     assert fit_label("quickmap") == "quickmap"
-    assert figure_set._slug("quickmap") == "quickmap"  # short plain names unchanged
-    assert figure_set._slug(LONG_A) != figure_set._slug(LONG_B)
-    assert figure_set._slug("a/b") != figure_set._slug("a:b")  # both slug to "a-b"
+    assert figure_records._slug("quickmap") == "quickmap"  # short plain names unchanged
+    assert figure_records._slug(LONG_A) != figure_records._slug(LONG_B)
+    assert figure_records._slug("a/b") != figure_records._slug("a:b")  # both slug to "a-b"

@@ -29,7 +29,8 @@ from matplotlib.colors import Normalize, to_rgba
 from PIL import Image
 
 from cohort.plots import style
-from cohort.plots.bullseye import bullseye_grid, draw_bullseye
+from cohort.plots.bullseye import draw_bullseye
+from cohort.plots.bullseye_grid import bullseye_grid
 from cohort.plots.style import (
     MISSING_COLOUR,
     OKABE_ITO,
