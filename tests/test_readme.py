@@ -33,3 +33,18 @@ def test_readme_states_the_cautions():
         "licensed professionals",
     ):
         assert phrase in text
+
+
+def test_the_python_api_example_runs(monkeypatch):
+    """The README's notebook example works as written (on the demo cohort)."""
+    text = (ROOT / "README.md").read_text(encoding="utf-8")
+    section = text[text.index("## Python API") :]
+    start = section.index("```python\n") + len("```python\n")
+    code = section[start : section.index("\n```", start)]
+    monkeypatch.chdir(ROOT)
+    namespace: dict = {}
+    exec(compile(code, "README.md (Python API)", "exec"), namespace)
+    limits = namespace["limits"]
+    assert limits.n_subjects == 48 and limits.lower.estimate < limits.bias.estimate
+    assert limits.upper.ci.low < limits.upper.estimate < limits.upper.ci.high
+    assert "agreement" in namespace["analysis"].tables

@@ -88,6 +88,31 @@ def _short(value: object) -> str:
     return repr(value)
 
 
+def _summary_lines(frame, note: str) -> list[str]:
+    """The lines of :meth:`Result.summary` for rows with ``estimate, ci_low, ci_high``."""
+    name = "quantity" if "quantity" in frame.columns else None
+    lines = []
+    for i, row in enumerate(frame.to_dict("records")):
+        label = str(row[name]) if name else f"row {i + 1}"
+        level = row.get("confidence_level", math.nan)
+        ci = f"{level:.0%} CI" if isinstance(level, float) and not math.isnan(level) else "CI"
+        line = f"  {label:<22} {row['estimate']:>10.4g}   {ci} {row['ci_low']:.4g} to "
+        line += f"{row['ci_high']:.4g}"
+        if "analytic_ci_low" in row:
+            line += f"   (analytic {row['analytic_ci_low']:.4g} to {row['analytic_ci_high']:.4g})"
+        lines.append(line)
+    for column, what in (("ci_method", "intervals"), ("analytic_ci_method", "analytic")):
+        methods = [m for m in dict.fromkeys(frame.get(column, ())) if isinstance(m, str) and m]
+        lines += [f"{what}: {m}" for m in methods]
+    counts = [
+        f"{c} = {frame[c].iloc[0]}" for c in ("n_subjects", "n_pairs", "n_units") if c in frame
+    ]
+    if counts:
+        lines.append(", ".join(counts))
+    notes = [n for n in dict.fromkeys([note, *frame.get("note", ())]) if isinstance(n, str) and n]
+    return lines + [f"note: {n}" for n in notes]
+
+
 class Result:
     """What every result of :mod:`cohort.stats` offers, whatever it estimates.
 
@@ -106,11 +131,17 @@ class Result:
         raise NotImplementedError
 
     def summary(self) -> str:
-        """The rows of :meth:`to_frame` as aligned text, with the note below when there is one."""
+        """A short text: one line per quantity with its estimate and interval, then how the
+        intervals were obtained, the counts and the note.
+
+        Results without estimates and intervals (a test) show the rows of :meth:`to_frame`.
+        """
         frame = self.to_frame()
-        text = frame.to_string(index=False)
         note = getattr(self, "note", "")
-        return f"{text}\nnote: {note}" if note else text
+        if not {"estimate", "ci_low", "ci_high"} <= set(frame.columns):
+            text = frame.to_string(index=False)
+            return f"{text}\nnote: {note}" if note else text
+        return "\n".join([type(self).__name__, *_summary_lines(frame, note)])
 
     def __repr__(self) -> str:
         values = {n: getattr(self, n) for n in getattr(self, "__dataclass_fields__", {})}
@@ -135,9 +166,12 @@ class Estimate(Result):
     >>> e
     Estimate(name='bias', estimate=1.1, ci=[0.8, 1.4], analytic_ci=[0.9, 1.3], n_subjects=12,
     n_pairs=204)
-    >>> print(e.summary())  # doctest: +ELLIPSIS
-    quantity  estimate  ci_low  ci_high ...
-        bias       1.1     0.8      1.4 ...
+    >>> print(e.summary())
+    Estimate
+      bias                          1.1   95% CI 0.8 to 1.4   (analytic 0.9 to 1.3)
+    intervals: subject cluster bootstrap
+    analytic: t, k-1 df
+    n_subjects = 12, n_pairs = 204
     """
 
     name: str

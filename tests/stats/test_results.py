@@ -70,13 +70,27 @@ def test_repr_shows_estimate_and_interval_in_one_line():
     assert f"bias={b.estimate:.4g} [{b.ci.low:.4g}, {b.ci.high:.4g}]" in repr(loa)
 
 
-def test_summary_is_the_frame_as_text_with_the_note():
+def test_summary_gives_each_quantity_with_its_interval_and_how_it_was_obtained():
     x, y, subject = pairs()
     loa = cs.limits_of_agreement(x, y, subject=subject, n_boot=40, seed=1)
-    summary = loa.summary()
-    table = loa.to_frame().to_string(index=False)
-    assert summary == (f"{table}\nnote: {loa.note}" if loa.note else table)
-    assert "bias" in summary and "loa_low" in summary and "ci_low" in summary
+    lines = loa.summary().splitlines()
+    assert lines[0] == "LimitsOfAgreement"
+    b = loa.bias
+    [bias] = [line for line in lines if line.split()[0] == "bias"]
+    assert f"{b.estimate:.4g}" in bias and f"95% CI {b.ci.low:.4g} to {b.ci.high:.4g}" in bias
+    assert f"(analytic {b.analytic_ci.low:.4g} to {b.analytic_ci.high:.4g})" in bias
+    assert [line.split()[0] for line in lines[1:7]] == [
+        "bias",
+        "loa_low",
+        "loa_high",
+        "sd",
+        "sd_within",
+        "sd_between",
+    ]
+    assert f"intervals: {b.ci.method}" in lines
+    assert f"n_subjects = {loa.n_subjects}, n_pairs = {loa.n_pairs}" in lines
+    test = cs.kruskal_wallis([[1.0, 2.0, 3.0], [4.0, 5.0, 6.0]])  # a test: its rows as a table
+    assert test.summary().startswith(test.to_frame().to_string(index=False))
     with pytest.warns(cs.NotEstimableWarning):
         lonely = cs.concordance_correlation(x, y, subject=np.zeros(18), n_boot=0)
     assert math.isnan(lonely.estimate)
