@@ -111,7 +111,8 @@ def cmd_demo(args: argparse.Namespace) -> int:
     folder = Path(args.folder)
     if folder.is_dir() and any(folder.iterdir()) and is_demo_folder(folder) and not args.force:
         print(
-            f"cohort: {str(folder)!r} holds an earlier demo; give --force to write it again",
+            f"cohort: {str(folder)!r} holds an earlier demo; give --force to write it again\n"
+            "Nothing was written or removed.",
             file=sys.stderr,
         )
         return 2

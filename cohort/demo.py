@@ -229,7 +229,8 @@ def _long(
 
 
 STUDY_TOML = """\
-# Invented demo study: no real subjects, sites or data. See README.md in this folder.
+# Invented demo study: no real subjects, sites or data. Its scenario and planted truth:
+# planted_lesions.csv here, and "The demo cohort" in the README of the cohort project.
 [study]
 title = "Harbour Valley myocardial tissue study (invented demo)"
 values = "values.csv"
@@ -275,7 +276,18 @@ def write_demo(
 ) -> Path:
     """Write the demo cohort (values.csv, subjects.csv, planted_lesions.csv, study.toml) to
     ``folder``: a new or empty folder, or one holding an earlier demo (:func:`is_demo_folder`);
-    anything else raises :class:`~cohort.report.destination.OutputExistsError`."""
+    anything else raises :class:`~cohort.report.destination.OutputExistsError`.
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> from pathlib import Path
+    >>> with tempfile.TemporaryDirectory() as folder:
+    ...     study_file = write_demo(folder, n_subjects=6)
+    ...     names = sorted(p.name for p in Path(folder).iterdir())
+    >>> study_file.name, names
+    ('study.toml', ['planted_lesions.csv', 'study.toml', 'subjects.csv', 'values.csv'])
+    """
     from cohort.report.destination import OutputExistsError
 
     folder = Path(folder)

@@ -24,21 +24,17 @@ from cohort.analysis.agreement_columns import (
     COLUMN_DESCRIPTIONS,
     regression_columns,
 )
-from cohort.domain.options import PB_MAX_PAIRS, STRATA
+from cohort.domain.options import DEFAULT_N_BOOT, DEFAULT_SEED, PB_MAX_PAIRS, STRATA
 from cohort.domain.segments import RINGS, TERRITORIES
 from cohort.domain.units import PARAMETERS
 from cohort.parallel import ordered_map
 from cohort.stats.agreement import (
     PROPORTIONAL,
-    REGRESSION_LIMIT_NAMES,
     LimitsOfAgreement,
     ba2007_analysis,
-    regression_based_limits,
     subject_mean_analysis,
 )
 from cohort.stats.bootstrap import (
-    DEFAULT_N_BOOT,
-    DEFAULT_SEED,
     EstimationContext,
     PairedValues,
     ResampleCounts,
@@ -50,6 +46,7 @@ from cohort.stats.bootstrap import (
 from cohort.stats.concordance import CCC_ANALYSIS, ICC_ANALYSIS
 from cohort.stats.correlation import PEARSON_ANALYSIS, RM_CORR_ANALYSIS, SPEARMAN_ANALYSIS
 from cohort.stats.regression import MethodRegression, deming, passing_bablok
+from cohort.stats.regression_limits import REGRESSION_LIMIT_NAMES, regression_based_limits
 from cohort.stats.results import Estimate, NotEstimableWarning, SingleQuantity
 
 __all__ = ["AGREEMENT_COLUMNS", "COLUMN_DESCRIPTIONS", "PB_TABLE_MAX_PAIRS", "agreement_table"]

@@ -38,10 +38,9 @@ import pandas as pd
 from numpy.typing import ArrayLike
 
 from cohort.analysis.findings import SEGMENT_COLUMNS, FindingsResult, summarise
+from cohort.domain.options import DEFAULT_N_BOOT, DEFAULT_SEED
 from cohort.domain.segments import SEGMENTS
 from cohort.stats.bootstrap import (
-    DEFAULT_N_BOOT,
-    DEFAULT_SEED,
     bootstrap_method,
     check_options,
     percentile_interval,

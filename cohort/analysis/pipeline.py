@@ -87,13 +87,33 @@ class Analysis:
     timings: dict[str, float] = field(default_factory=dict)
     display: dict[str, pd.DataFrame] = field(default_factory=dict)
 
+    def __repr__(self) -> str:
+        return (
+            f"<Analysis of {self.study.settings.title!r}: tables {list(self.tables)}, "
+            f"{len(self.alerts)} alerts, B = {self.options.n_boot}>"
+        )
 
-def options_from_study(study: Study, **overrides: Any) -> RunOptions:
+
+def options_from_study(
+    study: Study, *, where: str = "options_from_study()", **overrides: Any
+) -> RunOptions:
     """The study's options (its ``[analysis]`` table, parsed when read), then ``overrides``
     (those not None), each checked by its rule; raises
-    :class:`~cohort.domain.problems.StudyError` (see
-    :func:`cohort.domain.options.override_options`)."""
-    return override_options(study.settings.options, **overrides)
+    :class:`~cohort.domain.problems.StudyError` locating a bad override at ``where`` (see
+    :func:`cohort.domain.options.override_options`).
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> from cohort.demo import write_demo
+    >>> from cohort.io.study import load_study
+    >>> with tempfile.TemporaryDirectory() as folder:
+    ...     study = load_study(write_demo(folder, n_subjects=6))
+    >>> options = options_from_study(study, n_boot=500)
+    >>> options.n_boot, options.confidence_level
+    (500, 0.95)
+    """
+    return override_options(study.settings.options, where=where, **overrides)
 
 
 class _Steps:
@@ -125,6 +145,18 @@ def analyse(
 
     ``options`` default to the study's own (:attr:`StudySettings.options`); ``progress``
     is called with a message before each step.
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> from cohort.demo import write_demo
+    >>> from cohort.io.study import load_study
+    >>> with tempfile.TemporaryDirectory() as folder:
+    ...     study = load_study(write_demo(folder, n_subjects=6))
+    >>> analysis = analyse(study, options_from_study(study, n_boot=0, figures=False))
+    >>> row = analysis.tables["agreement"].iloc[0]
+    >>> str(row["parameter"]), str(row["method"]), int(row["n_subjects"])
+    ('ff', 'quickmap', 6)
     """
     options = options or study.settings.options
     step = _Steps(progress)

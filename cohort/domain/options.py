@@ -303,12 +303,18 @@ ANALYSIS_SCHEMA = TableSchema(keys=ANALYSIS_RULES)
 """Schema of the ``[analysis]`` table (see :func:`cohort.domain.rules.check_document`)."""
 
 
-def override_options(options: RunOptions, **overrides: Any) -> RunOptions:
+COMMAND_LINE = "command line"
+"""Where flags of ``cohort run`` are located in a problem."""
+
+
+def override_options(
+    options: RunOptions, *, where: str = COMMAND_LINE, **overrides: Any
+) -> RunOptions:
     """``options`` with ``overrides`` (those not None), each checked by its rule.
 
-    Raises :class:`StudyError` listing every invalid override (located at ``"command line"``,
-    naming the flag where there is one); unknown override names are a programming error
-    (TypeError).
+    Raises :class:`StudyError` listing every invalid override, located at ``where`` (the
+    command line, naming the flag where there is one, or the Python call that gave it);
+    unknown override names are a programming error (TypeError).
 
     Examples
     --------
@@ -325,10 +331,9 @@ def override_options(options: RunOptions, **overrides: Any) -> RunOptions:
         raise TypeError(f"unknown options {unknown}; known: {sorted(OVERRIDE_RULES)}")
     problems: list[Problem] = []
     for key, value in given.items():
-        flag_name = f" ({OVERRIDE_FLAGS[key]})" if key in OVERRIDE_FLAGS else ""
-        problems += check_value(
-            "command line", f"option '{key}'{flag_name}", value, OVERRIDE_RULES[key]
-        )
+        flag = OVERRIDE_FLAGS.get(key) if where == COMMAND_LINE else None
+        flag_name = f" ({flag})" if flag else ""
+        problems += check_value(where, f"option '{key}'{flag_name}", value, OVERRIDE_RULES[key])
     if problems:
         raise StudyError(problems)
     return replace(options, **{k: as_option(v, OVERRIDE_RULES[k]) for k, v in given.items()})

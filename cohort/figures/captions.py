@@ -13,6 +13,7 @@ import pandas as pd
 
 from cohort.analysis.display import FIELD_DEPENDENT_PARAMETERS
 from cohort.domain.units import PARAMETERS
+from cohort.domain.wording import percent_level
 from cohort.figures.tables import CI_METHOD, CONFIDENCE_LEVEL, NOTE, _float, _positive, _text
 from cohort.io.study import Study
 from cohort.plots.style import fit_label
@@ -82,7 +83,7 @@ def _short(value: float) -> str:
 
 def _level_text(row: pd.Series) -> str:
     level = _float(row, CONFIDENCE_LEVEL)
-    return f"{level:.0%}" if math.isfinite(level) else "the table's"
+    return percent_level(level) if math.isfinite(level) else "the table's"
 
 
 def _ci_text(row: pd.Series, low: str, high: str, unit: str = "") -> str | None:

@@ -66,6 +66,13 @@ class Study:
     records: pd.DataFrame
     warnings: list[Problem] = field(default_factory=list)
 
+    def __repr__(self) -> str:
+        return (
+            f"<Study {self.settings.title!r}: {len(self.subjects)} subjects, reference "
+            f"{self.reference!r}, test methods {list(self.test_methods)}, {len(self.paired)} "
+            f"pairs, {len(self.warnings)} warnings; .summary() for more>"
+        )
+
     @property
     def reference(self) -> str:
         return self.settings.reference
@@ -191,6 +198,17 @@ def load_study(source: str | Path | StudySettings) -> Study:
     Raises :class:`~cohort.domain.problems.StudyError` listing every problem found. Problems and
     records name an input file as :meth:`StudySettings.input_name` gives it (relative to the
     study file), never by an absolute path.
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> from cohort.demo import write_demo
+    >>> with tempfile.TemporaryDirectory() as folder:
+    ...     study = load_study(write_demo(folder, n_subjects=6))
+    >>> list(study.paired.columns[:4])
+    ['parameter', 'method', 'reference', 'subject']
+    >>> dict(sorted(study.records["status"].value_counts().items()))  # every input value
+    {'excluded': 3, 'missing': 3, 'used': 606}
     """
     settings = source if isinstance(source, StudySettings) else read_study_file(source)
     log = ProblemLog()
@@ -229,9 +247,10 @@ def load_study(source: str | Path | StudySettings) -> Study:
 
 
 def check_study(source: str | Path | StudySettings) -> Study:
-    """Read and check a study without analysing it (what ``cohort check`` does).
+    """Read and check a study without analysing it (what ``cohort check`` does): the same
+    as :func:`load_study`, named for the step a script takes before any analysis.
 
-    Every check of :func:`load_study` runs and nothing is written. Returns the checked
+    Every check runs and nothing is written. Returns the checked
     :class:`Study` (its :meth:`Study.summary` is what ``cohort check`` prints) or raises
     :class:`~cohort.domain.problems.StudyError` listing every problem of the study file and
     of both tables.

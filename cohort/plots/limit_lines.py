@@ -17,6 +17,7 @@ from matplotlib.axes import Axes
 from matplotlib.lines import Line2D
 from matplotlib.patches import Patch
 
+from cohort.domain.wording import interval_label
 from cohort.plots.style import BAND_COLOUR, LINE_COLOUR
 
 REGRESSION_KEYS = (
@@ -73,7 +74,7 @@ def _draw_limits(
         absent = [k for k, v in regression.items() if v is None or not math.isfinite(v)]
         raise ValueError(f"limit_type='regression' needs finite limits keys {absent!r}")
     level = _get(limits, "confidence_level")
-    ci_name = f"{level:.0%} CI" if level is not None and math.isfinite(level) else "CI"
+    ci_name = interval_label(level)
     if limit_type == "regression" or (limit_type == "auto" and has_regression):
         return _regression_lines(ax, regression, mean, ratio, decimals)
     values = _constant_limits(limits, ratio)

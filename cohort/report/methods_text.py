@@ -13,6 +13,7 @@ import pandas as pd
 from cohort.analysis.pipeline import Analysis
 from cohort.domain.segments import segment_model
 from cohort.domain.units import PARAMETERS
+from cohort.domain.wording import percent_level
 from cohort.stats.regression import PB_WEIGHTED_MAX_N
 
 REFERENCES: dict[str, str] = {
@@ -208,14 +209,27 @@ def _agreement_paragraph(analysis: Analysis) -> str:
 def _intervals_paragraph(analysis: Analysis) -> str:
     """How the confidence intervals were obtained, and the strata."""
     o = analysis.options
-    level = f"{o.confidence_level:.0%}"
+    level = percent_level(o.confidence_level)
+    analytic = (
+        "(Zou's MOVER for the limits [zou2013], exact intervals for per-subject "
+        "limits [carkeet2015], Fisher's z, Lin's z and the F-based ICC interval)"
+    )
+    if o.n_boot == 0:
+        intervals = (
+            f"No cluster bootstrap was run (B = 0): the {level} confidence intervals are the "
+            f"analytic intervals {analytic} named in each table row; several of them treat the "
+            "segments of a subject as independent observations and are then too narrow."
+        )
+    else:
+        intervals = (
+            f"Unless stated otherwise, {level} confidence intervals are percentile intervals "
+            f"of a subject-level cluster bootstrap [field2007] with B = {o.n_boot} resamples of "
+            f"subjects (seed {o.seed}), so that all segments of a subject are resampled "
+            f"together; analytic intervals {analytic} are reported beside them."
+        )
     return (
-        f"Unless stated otherwise, {level} confidence intervals are percentile intervals of a "
-        f"subject-level cluster bootstrap [field2007] with B = {o.n_boot} resamples of subjects "
-        f"(seed {o.seed}), so that all segments of a subject are resampled together; analytic "
-        "intervals (Zou's MOVER for the limits [zou2013], exact intervals for per-subject "
-        "limits [carkeet2015], Fisher's z, Lin's z and the F-based ICC interval) are reported "
-        "beside them. Results are given for all subjects and by "
+        intervals
+        + " Results are given for all subjects and by "
         + _join(
             [
                 {"group": "group", "ring": "ring", "territory": "coronary territory"}[x]

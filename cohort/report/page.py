@@ -17,6 +17,7 @@ from cohort import __version__
 from cohort.analysis.pipeline import Analysis
 from cohort.domain.cautions import CAUTION_LONG
 from cohort.domain.units import PARAMETERS
+from cohort.domain.wording import percent_level
 from cohort.report.html import bullet_list, esc, figure, fmt, page, section, table
 
 
@@ -124,7 +125,7 @@ def _key_results(analysis: Analysis) -> str:
         "<p>Intervals are 95% subject cluster bootstrap percentile intervals unless the tables "
         "say otherwise (see Methods).</p>"
         if analysis.options.confidence_level == 0.95
-        else f"<p>Intervals are {analysis.options.confidence_level:.0%} subject cluster "
+        else f"<p>Intervals are {percent_level(analysis.options.confidence_level)} subject cluster "
         "bootstrap percentile intervals unless the tables say otherwise.</p>"
     )
     return "\n".join(parts)

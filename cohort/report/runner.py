@@ -17,13 +17,13 @@ the output of an earlier run.
 
 from __future__ import annotations
 
-from collections.abc import Callable, Iterable
+from collections.abc import Iterable
 from dataclasses import dataclass
 from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
 
-from cohort.analysis.pipeline import Analysis, RunOptions, analyse
+from cohort.analysis.pipeline import Analysis, Progress, RunOptions, analyse
 from cohort.io.settings import StudySettings
 from cohort.io.study import Study, load_study
 from cohort.parallel import resolve_workers
@@ -32,8 +32,6 @@ from cohort.report.manifest import build_manifest, sha256, write_manifest
 from cohort.report.methods_text import methods_markdown
 from cohort.report.outputs import write_tables
 from cohort.report.page import render_report
-
-Progress = Callable[[str], None]
 
 
 @dataclass(frozen=True)
@@ -48,6 +46,12 @@ class RunSummary:
     alerts: tuple[str, ...]
     kept: Path | None = None
     """Where files found in a replaced earlier output, and not written by it, were kept."""
+
+    def __repr__(self) -> str:
+        return (
+            f"<RunSummary {str(self.out)!r}: {self.n_tables} tables, {self.n_figures} figures, "
+            f"{len(self.alerts)} alerts; .text() for more>"
+        )
 
     def text(self) -> str:
         study = self.analysis.study
@@ -91,6 +95,20 @@ def run(
     before the analysis (:func:`cohort.report.destination.check_destination`) against the
     study's input files and ``protect`` (other files the caller read, such as a key file);
     :class:`~cohort.report.destination.OutputFolderError` says why a folder is refused.
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> from pathlib import Path
+    >>> from cohort.analysis.pipeline import options_from_study
+    >>> from cohort.demo import write_demo
+    >>> with tempfile.TemporaryDirectory() as folder:
+    ...     study = load_study(write_demo(Path(folder) / "demo", n_subjects=6))
+    ...     options = options_from_study(study, n_boot=0, figures=False)
+    ...     done = run(study, Path(folder) / "report", options)
+    ...     names = sorted(p.name for p in done.out.iterdir())
+    >>> names
+    ['manifest.json', 'methods.md', 'report.html', 'tables', 'tables.xlsx']
     """
     tell = progress or (lambda message: None)
 

@@ -15,6 +15,7 @@ from pathlib import Path
 from typing import Any
 
 from cohort.analysis.pipeline import options_from_study
+from cohort.domain.options import COMMAND_LINE
 from cohort.io.pseudonyms import CODE_LIST_COLUMNS, load_key, pseudonymize_study
 from cohort.io.settings import StudySettings
 from cohort.io.study import load_study
@@ -84,7 +85,7 @@ def run_study(
         study = load_study(settings)
         if pseudonymize:
             study, codes = pseudonymize_study(study, load_key(key_file))
-        options = options_from_study(study, **overrides)
+        options = options_from_study(study, where=COMMAND_LINE, **overrides)
         summary = run(
             study,
             out,

@@ -39,11 +39,9 @@ Shared vocabulary
 from cohort.stats.agreement import (
     LimitsOfAgreement,
     ProportionalBias,
-    RegressionLimits,
     bias,
     limits_of_agreement,
     proportional_bias,
-    regression_based_limits,
     subject_mean_limits,
 )
 from cohort.stats.classification import (
@@ -85,6 +83,7 @@ from cohort.stats.multiplicity import adjust_p, adjust_within_families, benjamin
 from cohort.stats.proportion_tests import fisher_exact_2x2, freeman_halton, risk_difference
 from cohort.stats.proportions import wilson_interval
 from cohort.stats.regression import MethodRegression, deming, passing_bablok
+from cohort.stats.regression_limits import RegressionLimits, regression_based_limits
 from cohort.stats.results import (
     CohortWarning,
     ConfidenceInterval,

@@ -10,7 +10,8 @@ as in seaborn or pingouin::
 
 The two calls give the same result: the columns are taken as numpy arrays and handed to the
 estimator exactly as arrays would be. :func:`paired_arrays` is the one check of paired
-values (one-dimensional, finite, equal lengths) that the estimators share.
+values (one-dimensional, finite, equal lengths) and :func:`subject_labels` the one check of
+their subject labels, which the estimators share.
 """
 
 from __future__ import annotations
@@ -24,7 +25,7 @@ import numpy as np
 import pandas as pd
 from numpy.typing import ArrayLike
 
-__all__ = ["COLUMN_ROLES", "accepts_data", "columns_of", "paired_arrays"]
+__all__ = ["COLUMN_ROLES", "accepts_data", "columns_of", "paired_arrays", "subject_labels"]
 
 COLUMN_ROLES: tuple[str, ...] = ("reference", "test", "subject")
 """The arguments that name columns of ``data`` when it is given."""
@@ -124,6 +125,12 @@ def paired_arrays(reference: ArrayLike, test: ArrayLike) -> tuple[np.ndarray, np
     ...
     ValueError: reference and test must have the same length, got 3 and 2
     """
+    series = [v.index for v in (reference, test) if isinstance(v, pd.Series)]
+    if len(series) == 2 and not series[0].equals(series[1]):
+        raise ValueError(
+            "reference and test are pandas Series with different indexes; values are paired "
+            "by position, so align them first (or give data= a DataFrame and column names)"
+        )
     x = np.asarray(reference, dtype=float)
     y = np.asarray(test, dtype=float)
     for name, v in (("reference", x), ("test", y)):
@@ -135,3 +142,33 @@ def paired_arrays(reference: ArrayLike, test: ArrayLike) -> tuple[np.ndarray, np
     if x.size != y.size:
         raise ValueError(f"reference and test must have the same length, got {x.size} and {y.size}")
     return x, y
+
+
+def subject_labels(subject: ArrayLike, n_pairs: int) -> np.ndarray:
+    """Subject labels checked: one per pair, none missing (ValueError otherwise).
+
+    Labels of any type that compares (text, integers); the estimators code them into
+    subjects themselves.
+
+    Examples
+    --------
+    >>> subject_labels(["a", "a", "b"], 3).tolist()
+    ['a', 'a', 'b']
+    >>> subject_labels(True, 3)
+    Traceback (most recent call last):
+    ...
+    ValueError: subject must have one label per pair (3), got shape ()
+    >>> subject_labels(["a", None, "b"], 3)
+    Traceback (most recent call last):
+    ...
+    ValueError: subject must not be missing, got 1 missing
+    """
+    labels = np.asarray(subject)
+    if labels.shape != (n_pairs,):
+        raise ValueError(
+            f"subject must have one label per pair ({n_pairs}), got shape {labels.shape}"
+        )
+    missing = int(pd.isna(labels).sum())
+    if missing:
+        raise ValueError(f"subject must not be missing, got {missing} missing")
+    return labels

@@ -25,6 +25,7 @@ import numpy as np
 import pandas as pd
 from numpy.typing import ArrayLike
 
+from cohort.domain.options import DEFAULT_N_BOOT, DEFAULT_SEED
 from cohort.stats._agreement_core import (
     LOA_MULTIPLIER,
     MIN_SUBJECTS,
@@ -40,15 +41,12 @@ from cohort.stats._agreement_core import (
 )
 from cohort.stats._data import accepts_data
 from cohort.stats.bootstrap import (
-    DEFAULT_N_BOOT,
-    DEFAULT_SEED,
     Analysis,
     EstimationContext,
     SubjectSums,
     analyse,
 )
 from cohort.stats.regression_limits import (
-    REGRESSION_LIMIT_NAMES,
     RegressionLimits,
     regression_based_limits,
 )
@@ -60,17 +58,16 @@ from cohort.stats.results import (
     warn_not_estimable,
 )
 
-# Re-exported: the agreement namespace as it was before the split (statistics of totals,
-# analytic intervals and the regression-based limits live in their own modules).
+# Re-exported: the agreement namespace as it was before the split (statistics of totals and
+# analytic intervals live in cohort.stats._agreement_core). The regression-based limits are
+# imported from their home, cohort.stats.regression_limits.
 __all__ = [
     "LOA_MULTIPLIER",
     "MIN_SUBJECTS",
     "PROPORTIONAL",
-    "REGRESSION_LIMIT_NAMES",
     "SCALES",
     "LimitsOfAgreement",
     "ProportionalBias",
-    "RegressionLimits",
     "ba2007_analysis",
     "ba2007_analytic",
     "ba2007_statistic",
@@ -79,7 +76,6 @@ __all__ = [
     "limits_of_agreement",
     "proportional_bias",
     "proportional_statistic",
-    "regression_based_limits",
     "subject_mean_analysis",
     "subject_mean_analytic",
     "subject_mean_limits",

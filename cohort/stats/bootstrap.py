@@ -27,17 +27,12 @@ from dataclasses import dataclass, field
 from types import MappingProxyType
 
 import numpy as np
-import pandas as pd
 from numpy.typing import ArrayLike
 from scipy import stats
 
-from cohort.domain.options import DEFAULT_N_BOOT, DEFAULT_SEED
-from cohort.stats._data import paired_arrays
-from cohort.stats.results import ConfidenceInterval, Estimate, estimates_frame
-
-# The defaults live in cohort.domain.options, Estimate in cohort.stats.results; both are
-# re-exported here for the estimators that import them from this module.
-__all__ = ["DEFAULT_N_BOOT", "DEFAULT_SEED", "Estimate", "estimates_frame"]
+from cohort.domain.options import MAX_N_BOOT, MIN_N_BOOT
+from cohort.stats._data import paired_arrays, subject_labels
+from cohort.stats.results import ConfidenceInterval, Estimate
 
 _CHUNK_ELEMENTS = 4_000_000
 """Resamples per chunk times subjects: bounds the count matrix to about 32 MB."""
@@ -78,13 +73,7 @@ def paired_values(
     x, y = paired_arrays(reference, test)
     if subject is None:
         return PairedValues(x, y, np.arange(x.size), int(x.size))
-    labels = np.asarray(subject)
-    if labels.shape != x.shape:
-        raise ValueError(
-            f"subject must have one label per pair ({x.size}), got shape {labels.shape}"
-        )
-    if pd.isna(labels).any():
-        raise ValueError(f"subject must not be missing, got {int(pd.isna(labels).sum())} missing")
+    labels = subject_labels(subject, x.size)
     _, codes = np.unique(labels, return_inverse=True)
     codes = codes.reshape(-1)
     return PairedValues(x, y, codes, int(codes.max()) + 1 if codes.size else 0)
@@ -387,11 +376,28 @@ def percentile_interval(
 
 
 def check_options(confidence_level: float, n_boot: int) -> None:
-    """Raise ValueError for a confidence level outside (0, 1) or a negative n_boot."""
+    """Raise ValueError for a confidence level outside (0, 1) or an ``n_boot`` that the study
+    file would refuse: the rule is 0 (no bootstrap) or from
+    :data:`~cohort.domain.options.MIN_N_BOOT` to :data:`~cohort.domain.options.MAX_N_BOOT`,
+    defined once in :mod:`cohort.domain.options`.
+
+    Examples
+    --------
+    >>> check_options(0.95, 0), check_options(0.95, 2000)
+    (None, None)
+    >>> check_options(0.95, 5)
+    Traceback (most recent call last):
+    ...
+    ValueError: n_boot must be 0 (no bootstrap) or an integer from 20 to 1000000, got 5
+    """
     if not (isinstance(confidence_level, float | int) and 0.0 < confidence_level < 1.0):
         raise ValueError(f"confidence_level must be between 0 and 1, got {confidence_level!r}")
-    if isinstance(n_boot, bool) or not isinstance(n_boot, int | np.integer) or n_boot < 0:
-        raise ValueError(f"n_boot must be a non-negative integer, got {n_boot!r}")
+    whole = not isinstance(n_boot, bool) and isinstance(n_boot, int | np.integer)
+    if not whole or not (n_boot == 0 or MIN_N_BOOT <= n_boot <= MAX_N_BOOT):
+        raise ValueError(
+            f"n_boot must be 0 (no bootstrap) or an integer from {MIN_N_BOOT} to "
+            f"{MAX_N_BOOT}, got {n_boot!r}"
+        )
 
 
 @dataclass(frozen=True)

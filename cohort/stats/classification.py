@@ -39,6 +39,7 @@ STATISTICS: tuple[str, ...] = (*PROPORTIONS, "kappa")
 
 WILSON_METHOD = f"{WILSON}, units treated as independent"
 KAPPA_METHOD = "asymptotic SE (Fleiss, Cohen & Everitt 1969)"
+MCNEMAR_EXACT = "exact binomial on discordant pairs"
 
 _DENOMINATOR_REASON = {
     "sensitivity": "no reference-positive units",
@@ -214,25 +215,34 @@ def cohen_kappa(table: ArrayLike, confidence_level: float = 0.95) -> Kappa:
 
 @dataclass(frozen=True, repr=False)
 class McNemar(Result):
-    """McNemar's test of a paired 2x2 table from its discordant counts ``b`` and ``c``."""
+    """McNemar's test of a paired 2x2 table from its discordant counts ``b`` and ``c``.
+
+    ``statistic_name`` says what ``statistic`` is (``min(b, c)`` for the exact test,
+    ``chi-square`` otherwise) and ``p_method`` how the p-value was obtained, as for the
+    other tests (:class:`~cohort.stats.group_tests.GroupTest`).
+    """
 
     statistic: float
+    statistic_name: str
     p_value: float
+    p_method: str
     b: int
     c: int
-    method: str
     note: str = ""
 
+    _summary_counts = ("b", "c")
+
     def to_frame(self) -> pd.DataFrame:
-        """One row: statistic, p-value, discordant counts, method, note."""
+        """One row: statistic, p-value and its method, discordant counts, note."""
         return pd.DataFrame(
             [
                 {
                     "statistic": self.statistic,
+                    "statistic_name": self.statistic_name,
                     "p_value": self.p_value,
+                    "p_method": self.p_method,
                     "b": self.b,
                     "c": self.c,
-                    "method": self.method,
                     "note": self.note,
                 }
             ]
@@ -264,13 +274,13 @@ def mcnemar_test(b: int, c: int, *, exact: bool = True, correction: bool = False
         low = min(b, c)
         p = 1.0 if m == 0 else min(1.0, 2.0 * float(stats.binom.cdf(low, m, 0.5)))
         note = "no discordant pairs: p = 1" if m == 0 else ""
-        return McNemar(float(low), p, b, c, "exact binomial on discordant pairs", note)
+        return McNemar(float(low), "min(b, c)", p, MCNEMAR_EXACT, b, c, note)
     method = "chi-square, 1 df" + (", continuity corrected" if correction else "")
     if m == 0:
         note = warn_not_estimable("McNemar chi-square", "no discordant pairs")
-        return McNemar(math.nan, math.nan, b, c, method, note)
+        return McNemar(math.nan, "chi-square", math.nan, method, b, c, note)
     stat = (abs(b - c) - (1.0 if correction else 0.0)) ** 2 / m
-    return McNemar(stat, float(stats.chi2.sf(stat, 1)), b, c, method)
+    return McNemar(stat, "chi-square", float(stats.chi2.sf(stat, 1)), method, b, c)
 
 
 # --- diagnostic accuracy of a 2x2 table ------------------------------------------------------
@@ -290,6 +300,8 @@ class DiagnosticAccuracy(Result):
     npv: Proportion
     kappa: Kappa
     mcnemar: McNemar
+
+    _summary_counts = ("n_units", "tp", "fp", "fn", "tn")
 
     @property
     def n_units(self) -> int:

@@ -19,10 +19,9 @@ import pandas as pd
 from numpy.typing import ArrayLike
 from scipy import stats
 
+from cohort.domain.options import DEFAULT_N_BOOT, DEFAULT_SEED
 from cohort.stats._data import accepts_data
 from cohort.stats.bootstrap import (
-    DEFAULT_N_BOOT,
-    DEFAULT_SEED,
     Analysis,
     EstimationContext,
     SubjectSums,
@@ -105,6 +104,8 @@ class IccForm(Result):
     df2: float
     p_value: float
 
+    _summary_test_label = "F test"
+
     def to_frame(self) -> pd.DataFrame:
         """One row: the form, its estimate, interval and F test."""
         return pd.DataFrame([self.row()])
@@ -115,7 +116,7 @@ class IccForm(Result):
             "form": self.name,
             "shrout_fleiss": self.shrout_fleiss,
             "description": self.description,
-            "icc": self.estimate,
+            "estimate": self.estimate,
             "ci_low": self.ci.low,
             "ci_high": self.ci.high,
             "ci_method": self.ci.method,

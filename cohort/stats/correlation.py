@@ -19,10 +19,9 @@ import pandas as pd
 from numpy.typing import ArrayLike
 from scipy import stats
 
+from cohort.domain.options import DEFAULT_N_BOOT, DEFAULT_SEED
 from cohort.stats._data import accepts_data
 from cohort.stats.bootstrap import (
-    DEFAULT_N_BOOT,
-    DEFAULT_SEED,
     Analysis,
     EstimationContext,
     SubjectSums,
@@ -79,6 +78,8 @@ class Correlation(SingleQuantity):
     n_subjects: int
     n_pairs: int
     note: str = ""
+
+    _summary_test_label = "t test of no correlation"
 
     @property
     def quantity(self) -> str:  # type: ignore[override]

@@ -47,7 +47,8 @@ class EffectSize(Result):
         return cls(name, math.nan, ci, n_subjects, note)
 
     def row(self) -> dict[str, object]:
-        """The effect-size cells of a comparison table row."""
+        """The effect-size cells of a comparison table row (named for the group tables,
+        where they sit beside a test's cells: ``effect_size``, ``effect_ci_low`` ...)."""
         return {
             "effect_size": self.estimate,
             "effect_size_name": self.name,
@@ -60,7 +61,22 @@ class EffectSize(Result):
         }
 
     def to_frame(self) -> pd.DataFrame:
-        return pd.DataFrame([self.row()])
+        """One row in the words of every result: ``quantity`` (the effect size's name),
+        ``estimate``, ``ci_low``, ``ci_high``, ``ci_method``, level, subjects, note."""
+        return pd.DataFrame(
+            [
+                {
+                    "quantity": self.name,
+                    "estimate": self.estimate,
+                    "ci_low": self.ci.low,
+                    "ci_high": self.ci.high,
+                    "ci_method": self.ci.method,
+                    "confidence_level": self.ci.level,
+                    "n_subjects": self.n_subjects,
+                    "note": self.row()["note"],
+                }
+            ]
+        )
 
 
 def _z(confidence_level: float) -> float:

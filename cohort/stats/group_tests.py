@@ -27,6 +27,12 @@ KRUSKAL_WALLIS = "Kruskal-Wallis"
 MANN_WHITNEY = "Mann-Whitney U"
 WELCH_ANOVA = "Welch ANOVA"
 GAMES_HOWELL = "Games-Howell"
+GAMES_HOWELL_WORDS = {
+    "statistic_name": "t (Welch)",
+    "p_method": "t distribution, Welch df, unadjusted",
+    "p_adjusted_method": "studentized range over all groups",
+}
+"""What a Games-Howell :class:`PairTest` states about its statistic and p-values."""
 
 KRUSKAL_SMALL_GROUP = 5
 """Below 5 subjects in a group the chi-square approximation of H is rough (common practice)."""
@@ -101,6 +107,11 @@ class PairTest(Result):
     p_adjusted: float
     n_subjects: int
     note: str = ""
+    statistic_name: str = ""
+    p_method: str = ""
+    """How ``p_value`` was obtained (unadjusted)."""
+    p_adjusted_method: str = ""
+    """How ``p_adjusted`` was obtained."""
 
     @property
     def comparison(self) -> str:
@@ -298,7 +309,10 @@ def games_howell(
         reason = too_few_subjects(two, two_names) or _zero_variance(two, two_names)
         if reason:
             note = warn_not_estimable(f"{GAMES_HOWELL} {first} vs {second}", reason)
-            out.append(PairTest(first, second, GAMES_HOWELL, *[math.nan] * 6, size, note))
+            nan = [math.nan] * 6
+            out.append(
+                PairTest(first, second, GAMES_HOWELL, *nan, size, note, **GAMES_HOWELL_WORDS)
+            )
             continue
         vi, vj = var[i] / n[i], var[j] / n[j]
         se = math.sqrt(vi + vj)
@@ -307,7 +321,6 @@ def games_howell(
         df = (vi + vj) ** 2 / (vi**2 / (n[i] - 1) + vj**2 / (n[j] - 1))
         p_raw = float(2.0 * stats.t.sf(abs(t), df))
         p_adj = float(min(1.0, stats.studentized_range.sf(abs(t) * math.sqrt(2.0), k, df)))
-        out.append(
-            PairTest(first, second, GAMES_HOWELL, diff, se, t, float(df), p_raw, p_adj, size)
-        )
+        values = (diff, se, t, float(df), p_raw, p_adj)
+        out.append(PairTest(first, second, GAMES_HOWELL, *values, size, **GAMES_HOWELL_WORDS))
     return tuple(out)

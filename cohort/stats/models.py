@@ -22,6 +22,7 @@ import math
 import warnings
 from collections.abc import Iterator, Sequence
 from dataclasses import dataclass
+from types import SimpleNamespace
 
 import numpy as np
 import pandas as pd
@@ -31,7 +32,7 @@ from scipy import stats
 from statsmodels.tools.sm_exceptions import ConvergenceWarning, IterationLimitWarning
 
 from cohort.stats.group_samples import MIN_SUBJECTS_PER_GROUP
-from cohort.stats.results import Result, warn_not_estimable
+from cohort.stats.results import ConfidenceInterval, Estimate, Result, warn_not_estimable
 
 MIXED_MODEL_MAX_OBSERVATIONS = 10_000
 """Above this many segment values in one fit, linear models run on subject means.
@@ -294,7 +295,23 @@ class GroupModelFit(Result):
             "p_value": float(stats.f.sf(f, q, self.t_df)),
         }
 
+    def _summary_parts(self):
+        """Each term's estimate and Wald interval (named by the term), its test, then the
+        joint test of the group terms (:data:`JOINT_GROUP`), for :meth:`summary`."""
+        if not self.estimable:
+            return [], []
+        quantities, tests = [], []
+        for row in self.term_tests():
+            ci = ConfidenceInterval(row["ci_low"], row["ci_high"], 0.95, row["ci_method"])
+            estimate = Estimate(row["term"], row["estimate"], ci, ci, self.n_subjects, 0)
+            quantities.append((row["term"], estimate))
+            tests.append((row["term"], SimpleNamespace(**row)))
+        tests.append((JOINT_GROUP, SimpleNamespace(**self.joint_group_test())))
+        return quantities, tests
+
     def to_frame(self) -> pd.DataFrame:
+        """One row per term but the intercept (``term``, estimate, interval, test), then the
+        joint test of the group terms (``term`` = :data:`JOINT_GROUP`)."""
         if not self.estimable:
             return pd.DataFrame([{"term": "", "p_value": math.nan, "note": self.note}])
         rows = [*self.term_tests(), {"term": JOINT_GROUP, **self.joint_group_test()}]
@@ -332,10 +349,12 @@ def fit_group_model(
     (OLS of the subject means on the subject-level design, t and F) or ``"gee"`` (binary
     outcome, logit link, exchangeable correlation, robust SE). ``subject`` labels each
     observation; ``info`` (indexed by subject) holds ``group`` and the ``covariates``;
-    ``order`` lists the groups, the first present being the reference. Subjects without a
-    covariate value are left out (the note says how many). Not estimable, with a
-    ``NotEstimableWarning`` naming ``what``: fewer than 2 groups or 2 subjects in a group,
-    a constant covariate, a rank-deficient design, non-convergence, separation (GEE).
+    labels are matched to its index as text, so integer IDs work. ``order`` lists the
+    groups, the first present being the reference. An unknown ``kind`` is a ValueError
+    listing the kinds. Subjects without a covariate value are left out (the note says how
+    many). Not estimable, with a ``NotEstimableWarning`` naming ``what``: fewer than 2
+    groups or 2 subjects in a group, a constant covariate, a rank-deficient design,
+    non-convergence, separation (GEE).
     Validated (in the tests of :mod:`cohort.analysis.group_models`) against direct
     statsmodels formula fits (``mixedlm``, ``gee``, ``ols``).
 
@@ -348,13 +367,18 @@ def fit_group_model(
     >>> print(f"{term['term']}: {term['estimate']:.3f} (SE {term['std_error']:.3f})")
     group[b]: 1.383 (SE 0.362)
     """
+    if kind not in PATHS:
+        raise ValueError(f"kind must be one of {tuple(PATHS)}, got {kind!r}")
     path = PATHS[kind]
     y = np.asarray(outcome, dtype=float)
+    # labels are matched as text on both sides, so integer IDs (or IDs read as text from
+    # one file and as numbers from another) find their subjects
     codes, ids = pd.factorize(pd.Series(subject).astype(str), sort=True)
-    unknown = sorted(set(ids) - set(info.index))
+    rows = pd.Index(info.index.map(str)).get_indexer(ids)
+    unknown = sorted(ids[rows < 0])
     if unknown:
         raise ValueError(f"subjects table lacks subjects of the model data: {unknown[:5]}")
-    sub_info = info.loc[ids]
+    sub_info = info.iloc[rows]
     keep = subject_design(sub_info, order, covariates)[3]
     left_out = ""
     if not keep.all():

@@ -23,6 +23,7 @@ example of Benjamini & Hochberg (1995).
 from __future__ import annotations
 
 from collections.abc import Hashable, Sequence
+from dataclasses import fields, is_dataclass
 
 import numpy as np
 import pandas as pd
@@ -65,6 +66,13 @@ def holm(p_values: ArrayLike) -> np.ndarray:
     With the ``m`` finite p-values sorted, ``p_(1) <= ... <= p_(m)``, the adjusted value is
     ``max_{j <= i} min(1, (m - j + 1) p_(j))``. Validated against statsmodels
     ``multipletests(method='holm')`` (not its default, Holm-Sidak).
+
+    Examples
+    --------
+    >>> [round(float(v), 4) for v in holm([0.01, 0.04, 0.03, 0.005])]
+    [0.03, 0.06, 0.06, 0.02]
+    >>> [round(float(v), 4) for v in holm([0.01, float("nan"), 0.04])]  # m = 2
+    [0.02, nan, 0.04]
     """
     p, finite = _finite_p(p_values)
     out = np.full(p.shape, np.nan)
@@ -85,6 +93,11 @@ def benjamini_hochberg(p_values: ArrayLike) -> np.ndarray:
     With the ``m`` finite p-values sorted, the adjusted value of ``p_(i)`` is
     ``min_{j >= i} min(1, m p_(j) / j)``. Validated against statsmodels
     ``multipletests(method='fdr_bh')`` and the 15 p-values example of the paper.
+
+    Examples
+    --------
+    >>> [round(float(v), 4) for v in benjamini_hochberg([0.01, 0.04, 0.03, 0.005])]
+    [0.02, 0.04, 0.04, 0.02]
     """
     p, finite = _finite_p(p_values)
     out = np.full(p.shape, np.nan)
@@ -100,7 +113,21 @@ def benjamini_hochberg(p_values: ArrayLike) -> np.ndarray:
 
 
 def adjust_p(p_values: ArrayLike, method: str = HOLM) -> np.ndarray:
-    """Adjusted p-values of one family by ``method`` (one of :data:`CORRECTIONS`)."""
+    """Adjusted p-values of one family by ``method`` (one of :data:`CORRECTIONS`, or an
+    alias of :data:`ALIASES`).
+
+    Examples
+    --------
+    >>> p = [0.01, 0.04, 0.03, 0.005]
+    >>> [round(float(v), 4) for v in adjust_p(p, "fdr_bh")]
+    [0.02, 0.04, 0.04, 0.02]
+    >>> adjust_p(p, "none").tolist()
+    [0.01, 0.04, 0.03, 0.005]
+    >>> adjust_p(p, "bonferroni")
+    Traceback (most recent call last):
+    ...
+    ValueError: correction must be one of ('holm', ... got 'bonferroni'
+    """
     method = check_correction(method)
     if method == HOLM:
         return holm(p_values)
@@ -108,6 +135,19 @@ def adjust_p(p_values: ArrayLike, method: str = HOLM) -> np.ndarray:
         return benjamini_hochberg(p_values)
     p, _ = _finite_p(p_values)
     return p.copy()
+
+
+def _holds_missing(key: object) -> bool:
+    """Whether ``key`` is, or holds (in a tuple, list, set or dataclass), a value that does
+    not equal itself: NaN, ``pd.NA``, ``NaT``."""
+    if isinstance(key, tuple | list | set | frozenset):
+        return any(_holds_missing(k) for k in key)
+    if is_dataclass(key) and not isinstance(key, type):
+        return any(_holds_missing(getattr(key, f.name)) for f in fields(key))
+    try:
+        return not bool(key == key)
+    except (TypeError, ValueError):  # pd.NA == pd.NA is NA, whose truth is undefined
+        return True
 
 
 def adjust_within_families(
@@ -122,8 +162,10 @@ def adjust_within_families(
     ``families`` holds one key per p-value: any hashable value that identifies the family as
     data (a tuple such as ``(test, parameter, method)``, a frozen dataclass), never its
     display wording. Keys are compared by equality, so two families never mix unless their
-    keys are equal. ``rows`` (boolean, one per p-value) restricts the correction to some
-    p-values; the others come back NaN.
+    keys are equal. A key that is or holds a missing value (NaN, ``pd.NA``, ``NaT``) is an
+    error naming its row: NaN equals nothing, not even itself, so such rows would each end up
+    alone in a family of one. ``rows`` (boolean, one per p-value) restricts the correction
+    to some p-values; the others come back NaN.
 
     Examples
     --------
@@ -131,6 +173,10 @@ def adjust_within_families(
     >>> keys = [("KW", "mean"), ("KW", "mean"), ("KW", "max"), ("KW", "max"), ("KW", "max")]
     >>> [round(float(v), 3) for v in adjust_within_families(p, keys, HOLM)]
     [0.02, 0.04, 0.03, 0.04, 0.04]
+    >>> adjust_within_families([0.01, 0.02], [("KW", "mean"), ("KW", float("nan"))])
+    Traceback (most recent call last):
+    ...
+    ValueError: families: the key of row 1 holds a missing value (('KW', nan)); ...
     """
     method = check_correction(method)
     p, _ = _finite_p(p_values)
@@ -142,6 +188,11 @@ def adjust_within_families(
         raise ValueError(f"rows must hold one boolean per row ({p.size}), got {mask.shape}")
     members: dict[Hashable, list[int]] = {}
     for i in np.flatnonzero(mask):
+        if _holds_missing(keys[i]):
+            raise ValueError(
+                f"families: the key of row {i} holds a missing value ({keys[i]!r}); a missing "
+                "value equals no other, so the family is undefined: give every row a full key"
+            )
         members.setdefault(keys[i], []).append(int(i))
     out = np.full(p.shape, np.nan)
     for index in members.values():

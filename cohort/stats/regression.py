@@ -8,10 +8,12 @@ Two procedures, each returning a :class:`MethodRegression`:
 * :func:`deming`: the closed-form Deming (1943) estimator with a known ratio of error
   variances.
 
-x is always the reference method and y the test method (data contract). Intervals are the
-analytic ones by default; with ``subject`` and ``n_boot > 0`` they are subject-cluster bootstrap
-percentile intervals (Field & Welsh, J R Stat Soc B 2007), because segments of one subject are
-not independent.
+x is always the reference method and y the test method (data contract). Intervals are, as
+for every paired estimator, subject-cluster bootstrap percentile intervals by default
+(``n_boot=DEFAULT_N_BOOT``, ``seed=DEFAULT_SEED`` of :mod:`cohort.domain.options`; Field &
+Welsh, J R Stat Soc B 2007), because segments of one subject are not independent; the
+analytic interval, which treats pairs as independent, is beside them (``analytic_ci``) and is
+the interval itself with ``n_boot=0``.
 
 The Passing-Bablok machinery lives in private modules: :mod:`cohort.stats._pb_fit` (point fit
 and rank-based interval), :mod:`cohort.stats._slopes` (slope order statistics with or without
@@ -31,10 +33,11 @@ import pandas as pd
 from numpy.typing import ArrayLike
 from scipy import stats
 
+from cohort.domain.options import DEFAULT_N_BOOT, DEFAULT_SEED
 from cohort.stats import _pb_bootstrap
-from cohort.stats._data import accepts_data, paired_arrays
+from cohort.stats._data import accepts_data, paired_arrays, subject_labels
 from cohort.stats._inversions import ragged_ranges
-from cohort.stats._pb_fit import PB_DIRECT_MAX_N, PBFit, pb_fit, pb_point
+from cohort.stats._pb_fit import PBFit, pb_fit, pb_point
 from cohort.stats.bootstrap import ResampleCounts, check_options
 from cohort.stats.results import (
     ConfidenceInterval,
@@ -47,7 +50,6 @@ from cohort.stats.results import (
 __all__ = [
     "PB_BOOTSTRAP_MIN_B",
     "PB_BOOTSTRAP_PAIR_BUDGET",
-    "PB_DIRECT_MAX_N",
     "PB_WEIGHTED_MAX_N",
     "MethodRegression",
     "deming",
@@ -113,16 +115,14 @@ def _paired(reference: ArrayLike, test: ArrayLike) -> tuple[np.ndarray, np.ndarr
 
 
 def _check_common(confidence_level: float, n_boot: int, subject, n: int) -> np.ndarray | None:
-    """Check the options; subject codes in order of first appearance (None without)."""
+    """Check the options and the subject labels (the shared check,
+    :func:`cohort.stats._data.subject_labels`); subject codes in order of first appearance
+    (None without)."""
     check_options(confidence_level, n_boot)
     if subject is None:
         return None
-    codes, _ = pd.factorize(np.asarray(subject, dtype=object), use_na_sentinel=True)
-    if codes.size != n:
-        raise ValueError(f"subject must have one id per pair: got {codes.size} ids for {n} pairs")
-    if np.any(codes < 0):
-        raise ValueError(f"subject must not contain missing ids, got {int(np.sum(codes < 0))}")
-    return codes
+    labels = subject_labels(subject, n)
+    return pd.factorize(labels.astype(object), use_na_sentinel=True)[0]
 
 
 def _n_subjects(codes: np.ndarray | None, n: int) -> int:
@@ -168,8 +168,8 @@ def passing_bablok(
     *,
     confidence_level: float = 0.95,
     subject: ArrayLike | None = None,
-    n_boot: int = 0,
-    seed: int | None = None,
+    n_boot: int = DEFAULT_N_BOOT,
+    seed: int | None = DEFAULT_SEED,
     max_pair_resamples: int = PB_BOOTSTRAP_PAIR_BUDGET,
 ) -> MethodRegression:
     """Passing-Bablok regression of test (y) on reference (x).
@@ -186,20 +186,19 @@ def passing_bablok(
     measurements from two different analytical methods. J Clin Chem Clin Biochem
     1983;21:709-720.
 
-    Algorithm: up to ``PB_DIRECT_MAX_N`` pairs all slopes are sorted; above, the order
-    statistics are selected without enumerating them, exactly (:mod:`cohort.stats._slopes`).
-    Memory O(n); on a shared 2-core machine about 0.04 s at 1,700 pairs, 1 s at 170,000 and
-    16 s at 1.7 million, slope and interval together.
+    Algorithm: up to :data:`cohort.stats._pb_fit.PB_DIRECT_MAX_N` pairs all slopes are
+    sorted; above, the order statistics are selected exactly without enumerating them
+    (:mod:`cohort.stats._slopes`). Memory O(n); on a shared 2-core machine about 0.04 s at
+    1,700 pairs, 1 s at 170,000 and 16 s at 1.7 million, slope and interval together.
 
-    Intervals: by default the rank-based interval above, which treats pairs as independent.
-    With ``n_boot > 0``: percentile interval of a bootstrap that resamples subjects with
-    replacement (``subject``; without it every pair is its own cluster), numpy
-    ``default_rng(seed)``. A cluster bootstrap refits the whole estimator B times; if
-    n_pairs x n_boot exceeds ``max_pair_resamples`` only as many resamples as fit are run
-    (the interval's ``method`` gives the B actually run and a note says so), and below
-    ``PB_BOOTSTRAP_MIN_B`` resamples the analytic interval is returned with a note (with the
-    default budget: B up to 1176 at 170,000 pairs; none at 1.7 million, where 117 would fit).
-    Raise ``max_pair_resamples`` to run more, knowingly.
+    Intervals: by default (``n_boot > 0``) the percentile interval of a bootstrap that
+    resamples subjects with replacement (``subject``; without it every pair is its own
+    cluster), ``default_rng(seed)``; the rank-based interval, which treats pairs as
+    independent, is ``analytic_ci`` (and the interval itself with ``n_boot=0``). If n_pairs
+    x n_boot exceeds ``max_pair_resamples`` only as many resamples as fit are run (the
+    ``method`` gives the B run, a note says so); below ``PB_BOOTSTRAP_MIN_B`` resamples the
+    analytic interval is returned with a note (default budget: B up to 1176 at 170,000
+    pairs; none at 1.7 million). Raise ``max_pair_resamples`` to run more, knowingly.
 
     Validated against: an independent O(n^2) computation with ties, vertical slopes and
     slopes of -1 (exact equality, also for the selection algorithm); the creatinine example
@@ -215,8 +214,10 @@ def passing_bablok(
     >>> fit = passing_bablok(ref, new)
     >>> round(fit.slope.estimate, 3), round(fit.intercept.estimate, 3)
     (0.9, 1.55)
-    >>> round(fit.slope.ci.low, 3), round(fit.slope.ci.high, 3)
+    >>> round(fit.slope.analytic_ci.low, 3), round(fit.slope.analytic_ci.high, 3)
     (0.735, 1.214)
+    >>> fit.slope.ci.method  # the default interval: every pair its own cluster here
+    'pair bootstrap (no subject given), percentile, B=2000, seed=20261202'
     """
     x, y = _paired(reference, test)
     codes = _check_common(confidence_level, n_boot, subject, x.size)
@@ -333,8 +334,8 @@ def deming(
     error_ratio: float = 1.0,
     confidence_level: float = 0.95,
     subject: ArrayLike | None = None,
-    n_boot: int = 0,
-    seed: int | None = None,
+    n_boot: int = DEFAULT_N_BOOT,
+    seed: int | None = DEFAULT_SEED,
     resample_counts: ResampleCounts | None = None,
 ) -> MethodRegression:
     """Deming regression of test (y) on reference (x) with a known error-variance ratio.
@@ -346,10 +347,11 @@ def deming(
     As r -> infinity (all error in y) b tends to the OLS slope of y on x, s_xy / s_xx; as
     r -> 0 (all error in x) to the inverse of the OLS slope of x on y, s_yy / s_xy.
 
-    Interval: by default jackknife standard errors with a t quantile on n - 2 df, pairs
-    treated as independent (Linnet 1990, 1993; see :func:`_deming_jackknife`). With
-    ``n_boot > 0``: subject-cluster bootstrap percentile interval, numpy
-    ``default_rng(seed)``, from per-subject sums; ``resample_counts`` (a
+    Interval: by default (``n_boot > 0``) the subject-cluster bootstrap percentile interval,
+    numpy ``default_rng(seed)``, from per-subject sums (without ``subject`` every pair is its
+    own cluster); ``analytic_ci`` is the jackknife interval, standard errors with a t
+    quantile on n - 2 df, pairs treated as independent (Linnet 1990, 1993; see
+    :func:`_deming_jackknife`), and the interval itself with ``n_boot=0``; ``resample_counts`` (a
     :class:`cohort.stats.bootstrap.ResampleCounts` of the same ``n_boot`` and ``seed``)
     reuses subject counts drawn for other statistics: the very resamples this function would
     draw, so the interval is the same.
@@ -364,7 +366,7 @@ def deming(
     --------
     >>> ref = [10.1, 12.0, 9.8, 11.5, 13.2, 10.9, 12.4, 9.5, 11.1, 12.8]
     >>> new = [10.6, 12.1, 10.5, 11.9, 13.0, 11.8, 12.9, 10.1, 11.3, 13.6]
-    >>> fit = deming(ref, new)
+    >>> fit = deming(ref, new, n_boot=0)  # the jackknife interval only
     >>> round(fit.slope.estimate, 3), round(fit.intercept.estimate, 3)
     (0.91, 1.475)
     >>> round(fit.slope.ci.low, 3), round(fit.slope.ci.high, 3)

@@ -13,6 +13,7 @@ import numpy as np
 import pandas as pd
 from numpy.typing import ArrayLike
 
+from cohort.domain.options import DEFAULT_N_BOOT, DEFAULT_SEED
 from cohort.stats._agreement_core import (
     LOA_MULTIPLIER,
     MIN_SUBJECTS,
@@ -21,8 +22,6 @@ from cohort.stats._agreement_core import (
 )
 from cohort.stats._data import accepts_data
 from cohort.stats.bootstrap import (
-    DEFAULT_N_BOOT,
-    DEFAULT_SEED,
     check_options,
     context,
     paired_values,

@@ -16,12 +16,12 @@ from cohort.parallel import can_fork
 from cohort.stats.agreement import (
     limits_of_agreement,
     proportional_bias,
-    regression_based_limits,
     subject_mean_limits,
 )
 from cohort.stats.concordance import concordance_correlation, icc_agreement
 from cohort.stats.correlation import pearson, repeated_measures_correlation, spearman
 from cohort.stats.regression import deming, passing_bablok
+from cohort.stats.regression_limits import regression_based_limits
 from cohort.stats.results import NotEstimableWarning
 
 B = 100
@@ -341,7 +341,10 @@ def test_without_bootstrap_the_note_says_so(paired):
         ({"ratio_parameters": "r2star"}, "ratio_parameters must be a sequence of parameter codes"),
         ({"extra_strata": {"x": [True]}}, r"extra_strata\['x'\] must be a boolean mask"),
         ({"extra_strata": {"group=acute": None}}, "extra_strata names must be new"),
-        ({"n_boot": -5}, "n_boot must be a non-negative integer, got -5"),
+        (
+            {"n_boot": -5},
+            r"n_boot must be 0 \(no bootstrap\) or an integer from 20 to 1000000, got -5",
+        ),
     ],
 )
 def test_errors_name_the_argument(paired, options, match):

@@ -153,7 +153,7 @@ def test_unclassified_units_are_counted_not_compared():
     one = FindingDefinition("one", "r2star", kind="remote", k=2.0, remote_segments=(1,))
     with pytest.warns(NotEstimableWarning):
         res = evaluate_findings(values, planted_subjects(), (one,))
-        table = findings_agreement(res, "ref", levels=("segment", "subject"), n_boot=10).table
+        table = findings_agreement(res, "ref", levels=("segment", "subject"), n_boot=20).table
     seg = table.set_index(["level", "stratum"]).loc[("segment", "all")]
     assert seg["n_units"] == 0 and seg["n_unclassified"] == 8 * 17 - 1
     assert "not classified by both methods" in seg["note"]
@@ -194,7 +194,9 @@ def test_input_errors():
         findings_agreement(res, "ref", levels=("ring",))
     with pytest.raises(ValueError, match="methods must be test methods"):
         findings_agreement(res, "ref", methods=("ref",))
-    with pytest.raises(ValueError, match="n_boot must be a non-negative integer"):
+    with pytest.raises(
+        ValueError, match=r"n_boot must be 0 \(no bootstrap\) or an integer from 20"
+    ):
         findings_agreement(res, "ref", n_boot=-1)
     with pytest.raises(ValueError, match="reference must be a method"):
         missed_findings(res, "nope")

@@ -339,7 +339,8 @@ def test_overrides_are_checked_like_the_file(tmp_path):
         with pytest.raises(StudyError) as info:
             options_from_study(study, **override)
         (problem,) = info.value.problems
-        assert problem.file == "command line" and next(iter(override)) in problem.detail
+        assert problem.file == "options_from_study()" and next(iter(override)) in problem.detail
+        assert "--" not in problem.detail  # no command-line flag named in a Python call
     assert options_from_study(study, n_boot=0).n_boot == 0  # 0 = analytic intervals only
     assert options_from_study(study, n_boot=opts.MIN_N_BOOT).n_boot == opts.MIN_N_BOOT
     with pytest.raises(TypeError, match="unknown options"):

@@ -332,7 +332,12 @@ def test_key_file_inside_out_is_protected(study, tmp_path, key_file, capsys):
 def test_demo_writes_only_into_a_new_folder_or_an_earlier_demo(tmp_path, capsys):
     folder = tmp_path / "d"
     assert main(["demo", str(folder), "--subjects", "6"]) == 0
-    refused(capsys, main(["demo", str(folder), "--subjects", "6"]), "earlier demo")
+    refused(
+        capsys,
+        main(["demo", str(folder), "--subjects", "6"]),
+        "earlier demo",
+        "Nothing was written or removed.",
+    )
     assert main(["demo", str(folder), "--subjects", "7", "--force"]) == 0
     (folder / "values.csv").write_text("my own values\n")  # now not a demo's file alone?
     (folder / "notes.txt").write_text("mine")

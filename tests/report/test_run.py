@@ -89,6 +89,20 @@ def test_methods_text_states_what_ran(demo_run):
     assert "50 1/s at 1.5 T" in text and "79 1/s at 3 T (derived)" in text
 
 
+def test_methods_text_without_bootstrap_and_at_another_level_says_so(demo_run):
+    """B = 0 runs no bootstrap: the text must not claim percentile bootstrap intervals; a
+    level of 0.975 is 97.5 %, never rounded to a level not used."""
+    from cohort.analysis.pipeline import analyse
+    from cohort.report.methods_text import methods_markdown
+
+    study = load_study(demo_run[0])
+    options = options_from_study(study, n_boot=0, figures=False, confidence_level=0.975)
+    text = methods_markdown(analyse(study, options))
+    assert "No cluster bootstrap was run (B = 0)" in text and "97.5% confidence" in text
+    assert "percentile intervals of a subject-level cluster bootstrap" not in text
+    assert "98%" not in text
+
+
 def test_rerun_with_the_same_seed_reproduces_every_table(demo_run, tmp_path):
     study_file, summary = demo_run
     study = load_study(study_file)

@@ -20,9 +20,9 @@ from cohort.stats.agreement import (
     bias,
     limits_of_agreement,
     proportional_bias,
-    regression_based_limits,
     subject_mean_limits,
 )
+from cohort.stats.regression_limits import regression_based_limits
 from cohort.stats.results import NotEstimableWarning
 
 matplotlib.use("Agg")

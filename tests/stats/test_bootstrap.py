@@ -278,15 +278,33 @@ def test_paired_values_errors(reference, test, subject, match):
 @pytest.mark.parametrize(
     ("confidence_level", "n_boot", "match"),
     [
-        (1.0, 10, "confidence_level must be between 0 and 1, got 1.0"),
-        (0.0, 10, "confidence_level must be between 0 and 1"),
-        (0.95, -1, "n_boot must be a non-negative integer, got -1"),
-        (0.95, 2.5, "n_boot must be a non-negative integer, got 2.5"),
+        (1.0, 100, "confidence_level must be between 0 and 1, got 1.0"),
+        (0.0, 100, "confidence_level must be between 0 and 1"),
+        (0.95, -1, r"n_boot must be 0 \(no bootstrap\) or an integer from 20 to 1000000, got -1"),
+        (0.95, 2.5, "n_boot must be 0 .* got 2.5"),
+        (0.95, True, "n_boot must be 0 .* got True"),
+        (0.95, 1, "n_boot must be 0 .* got 1"),
+        (0.95, 19, "n_boot must be 0 .* got 19"),
+        (0.95, 1_000_001, "n_boot must be 0 .* got 1000001"),
     ],
 )
 def test_check_options_errors(confidence_level, n_boot, match):
     with pytest.raises(ValueError, match=match):
         bootstrap.check_options(confidence_level, n_boot)
+
+
+def test_estimators_follow_the_study_file_rule_for_n_boot():
+    # One rule in one place (cohort.domain.options): 0, or MIN_N_BOOT to MAX_N_BOOT; the
+    # study file refuses 19 resamples, so an estimator must too, and accept the bounds.
+    from cohort.domain.options import MAX_N_BOOT, MIN_N_BOOT
+    from cohort.stats import deming, limits_of_agreement, passing_bablok
+
+    for n_boot in (0, MIN_N_BOOT, MAX_N_BOOT):
+        bootstrap.check_options(0.95, n_boot)
+    x, y, subject = [1.0, 2.0, 3.5, 4.0], [1.1, 2.2, 3.3, 4.4], [1, 1, 2, 2]
+    for estimator in (limits_of_agreement, passing_bablok, deming):
+        with pytest.raises(ValueError, match=f"from {MIN_N_BOOT} to {MAX_N_BOOT}, got 19"):
+            estimator(x, y, subject=subject, n_boot=MIN_N_BOOT - 1)
 
 
 def test_ratio_scale_is_left_out_with_the_count_of_non_positive_pairs():

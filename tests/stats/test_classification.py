@@ -135,14 +135,19 @@ def test_mcnemar_chi_square_matches_agresti():
     corrected = mcnemar_test(150, 86, exact=False, correction=True)
     ref_c = mcnemar([[794, 150], [86, 570]], exact=False, correction=True)
     assert corrected.statistic == pytest.approx(ref_c.statistic, rel=1e-12)
+    # the words of every test (GroupTest): statistic_name, p_value, p_method
     assert list(corrected.to_frame().columns) == [
         "statistic",
+        "statistic_name",
         "p_value",
+        "p_method",
         "b",
         "c",
-        "method",
         "note",
     ]
+    assert corrected.p_method == "chi-square, 1 df, continuity corrected"
+    assert corrected.statistic_name == "chi-square" and not hasattr(corrected, "method")
+    assert mcnemar_test(3, 2).statistic_name == "min(b, c)"
 
 
 def test_mcnemar_without_discordant_pairs():

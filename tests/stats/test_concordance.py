@@ -60,9 +60,9 @@ def test_icc_forms_on_shrout_fleiss_example(unrounded_pingouin):
     expected = _pingouin_icc(SHROUT_FLEISS)
     got = forms.to_frame()
     np.testing.assert_allclose(
-        got["icc"], [0.165742, 0.289764, 0.714841, 0.442797, 0.620051, 0.909316], atol=1e-6
+        got["estimate"], [0.165742, 0.289764, 0.714841, 0.442797, 0.620051, 0.909316], atol=1e-6
     )
-    np.testing.assert_allclose(got["icc"], expected["ICC"], rtol=1e-10)
+    np.testing.assert_allclose(got["estimate"], expected["ICC"], rtol=1e-10)
     np.testing.assert_allclose(got["f_value"], expected["F"], rtol=1e-10)
     np.testing.assert_allclose(got["p_value"], expected["pval"], rtol=1e-8)
     expected_ci = np.vstack(expected["CI95"].to_numpy())

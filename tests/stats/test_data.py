@@ -127,3 +127,18 @@ def test_decorator_passes_array_calls_through_unchanged():
 def test_paired_arrays_errors_name_the_argument(reference, test, match):
     with pytest.raises(ValueError, match=match):
         paired_arrays(reference, test)
+
+
+def test_series_with_different_indexes_are_refused_not_paired_by_position():
+    """pandas users expect alignment by index; pairing by position would silently pair the
+    wrong values, so differing indexes are an error (equal ones are fine)."""
+    import pandas as pd
+
+    from cohort.stats import bias
+
+    ref = pd.Series([1.0, 2.0, 3.0, 4.0], index=[0, 1, 2, 3])
+    test = pd.Series([1.5, 2.5, 3.0, 4.5], index=[3, 2, 1, 0])
+    with pytest.raises(ValueError, match="different indexes"):
+        bias(ref, test, n_boot=0)
+    same = bias(ref, test.sort_index(), n_boot=0)
+    assert same.estimate == pytest.approx(float((test.sort_index() - ref).mean()))

@@ -95,7 +95,10 @@ def test_effect_sizes_follow_the_vocabulary_of_results():
     g = hedges_g(b, a)
     assert isinstance(g, EffectSize) and isinstance(g, Result)
     assert not hasattr(g, "value") and g.n_subjects == a.size + b.size
-    assert g.to_frame()["effect_size"].iloc[0] == g.estimate
+    row = g.to_frame().iloc[0]  # the words of every result, not the group table's
+    assert (row["quantity"], row["estimate"]) == ("Hedges' g", g.estimate)
+    assert (row["ci_low"], row["ci_high"]) == (g.ci.low, g.ci.high)
+    assert "effect_size" not in row and g.row()["effect_ci_low"] == g.ci.low  # table cells
     assert repr(g).startswith('EffectSize(name="Hedges\' g", estimate=')
     with pytest.warns(NotEstimableWarning, match="zero pooled variance"):
         flat = hedges_g([2.0, 2.0], [3.0, 3.0])

@@ -101,3 +101,37 @@ def test_not_estimable_fits_say_why():
     assert gee.path == GEE_PATH and math.isnan(gee.to_frame()["p_value"].iloc[0])
     with pytest.raises(ValueError, match="subjects table lacks subjects of the model data"):
         fit_group_model("mixed", [1.0], ["nobody"], info, ["control"])
+
+
+def test_integer_subject_ids_fit_as_their_text_does():
+    # The reviewer's case: integer IDs in both the data and the subjects table were refused
+    # ("subjects table lacks subjects"). Same data with IDs 0..23 instead of "s00".."s23";
+    # checked against statsmodels formula ols on the subject means (reference library).
+    frame, info = clustered()
+    number = {s: i for i, s in enumerate(info.index)}
+    order = ["control", "acute", "chronic"]
+    ids = frame["subject"].map(number).to_numpy()
+    by_number = info.rename(index=number)
+    fit = fit_group_model("subject-means", frame["value"], ids, by_number, order)
+    means = frame.groupby(["subject", "group"], as_index=False)["value"].mean()
+    ols = smf.ols("value ~ C(group, Treatment('control'))", means).fit()
+    terms = {t["term"]: t for t in fit.term_tests()}
+    name = "C(group, Treatment('control'))[T.acute]"
+    assert terms["group[acute]"]["estimate"] == pytest.approx(ols.params[name], rel=1e-10)
+    assert (fit.n_subjects, fit.n_observations) == (24, 144)
+    # IDs as numbers in the data and as text in the table (or the reverse) match too
+    text_table = info.rename(index=lambda s: str(number[s]))
+    mixed = fit_group_model("subject-means", frame["value"], ids, text_table, order)
+    assert next(mixed.term_tests())["estimate"] == terms["group[acute]"]["estimate"]
+    with pytest.raises(
+        ValueError, match=r"subjects table lacks subjects of the model data: \['99'\]"
+    ):
+        fit_group_model("subject-means", [1.0], [99], by_number, order)
+
+
+def test_unknown_kind_is_a_value_error_listing_the_kinds():
+    frame, info = clustered()
+    with pytest.raises(
+        ValueError, match=r"kind must be one of \('mixed', 'subject-means', 'gee'\), got 'ols'"
+    ):
+        fit_group_model("ols", frame["value"], frame["subject"], info, ["control", "acute"])

@@ -171,3 +171,36 @@ def test_families_never_mix_and_unselected_rows_are_nan():
     np.testing.assert_allclose(some[[0, 2]], multipletests(p[[0, 2]], method="holm")[1])
     with pytest.raises(ValueError, match="families must hold one key per p-value \\(4\\), got 3"):
         adjust_within_families(p, ["a"] * 3)
+
+
+def test_docstring_examples_agree_with_statsmodels():
+    # the values printed in the Examples of holm, benjamini_hochberg and adjust_p, recomputed
+    # with statsmodels multipletests (registry reference library)
+    p = np.array([0.01, 0.04, 0.03, 0.005])
+    for ours, name in ((holm, "holm"), (benjamini_hochberg, "fdr_bh")):
+        with mock.patch("gc.collect", return_value=0):  # statsmodels' Holm collects
+            want = multipletests(p, method=name)[1]
+        np.testing.assert_allclose(ours(p), want, rtol=1e-12)
+        np.testing.assert_allclose(adjust_p(p, name), want, rtol=1e-12)
+    np.testing.assert_allclose(holm(p), [0.03, 0.06, 0.06, 0.02], rtol=1e-12)
+    np.testing.assert_allclose(benjamini_hochberg(p), [0.02, 0.04, 0.04, 0.02], rtol=1e-12)
+
+
+@pytest.mark.parametrize(
+    "missing",
+    [float("nan"), np.nan, pd.NA, pd.NaT, ("KW", float("nan")), ("KW", ("max", np.nan))],
+    ids=["nan", "np.nan", "pd.NA", "NaT", "in a tuple", "nested"],
+)
+def test_missing_value_in_a_family_key_is_an_error_naming_the_row(missing):
+    # NaN equals nothing, not even another NaN: without the check each such row would be a
+    # family of one and its p-value left unadjusted, silently (the reviewer's case)
+    p = [0.01, 0.02, 0.03]
+    keys = [("KW", "mean"), missing, ("KW", "mean")]
+    with pytest.raises(ValueError, match="families: the key of row 1 holds a missing value"):
+        adjust_within_families(p, keys)
+    # the row left out of the correction need not have a key
+    got = adjust_within_families(p, keys, rows=[True, False, True])
+    np.testing.assert_allclose(got[[0, 2]], holm([0.01, 0.03]))
+    table = pd.DataFrame({"family": [1.0, np.nan, 1.0], "p_value": p})
+    with pytest.raises(ValueError, match="row 1"):
+        adjust_table(table)

@@ -95,7 +95,7 @@ def test_pb_equals_brute_force_with_ties_vertical_and_minus_one(seed):
     n = int(rng.integers(12, 45))
     x = rng.integers(0, 6, n).astype(float)
     y = x + rng.integers(-2, 3, n)
-    fit = passing_bablok(x, y)
+    fit = passing_bablok(x, y, n_boot=0)  # the rank-based interval as the interval itself
     b, a, s_ci, a_ci = brute_pb(x, y)
     assert (fit.slope.estimate, fit.intercept.estimate) == (b, a)
     assert (fit.slope.ci.low, fit.slope.ci.high) == s_ci
@@ -165,7 +165,7 @@ def test_pb_creatinine_example_of_the_mcr_package():
     # 14 Feb 2022: intercept -0.1171729 (-0.2001149, -0.020000), slope 1.0880089
     # (1.0000000, 1.173005).
     x, y = creatinine()
-    fit = passing_bablok(x, y)
+    fit = passing_bablok(x, y, n_boot=0)  # mcr's analytical CI: the rank-based interval
     assert fit.n_pairs == 108
     assert fit.slope.estimate == pytest.approx(1.0880089, abs=5e-8)
     assert fit.intercept.estimate == pytest.approx(-0.1171729, abs=5e-8)
@@ -301,7 +301,7 @@ def test_pb_not_estimable_is_nan_with_reason_and_warning(x, y, reason):
 def test_pb_rank_interval_not_estimable_for_tiny_samples():
     # n = 3 gives N = 3 slopes but C = 1.96 sqrt(3*2*11/18) = 3.75, so M1 < 1 (paper's ranks)
     with pytest.warns(NotEstimableWarning, match="rank-based interval"):
-        fit = passing_bablok([1.0, 2.0, 3.0], [1.0, 2.5, 2.9])
+        fit = passing_bablok([1.0, 2.0, 3.0], [1.0, 2.5, 2.9], n_boot=0)
     assert fit.slope.estimate == 0.95 and not fit.slope.ci.estimable
     assert "rank-based interval" in fit.slope.ci.note
 
@@ -384,7 +384,29 @@ def test_bootstrap_needs_two_subjects():
 def test_analytic_interval_with_subjects_says_it_ignores_clustering():
     x, y, subject = cohort_data()
     for fn in (passing_bablok, deming):
-        assert "ignores the clustering" in fn(x, y, subject=subject).note
+        assert "ignores the clustering" in fn(x, y, subject=subject, n_boot=0).note
+
+
+def test_pb_and_deming_default_to_the_subject_cluster_bootstrap_of_every_estimator():
+    # project rule (cohort.domain.options): every paired estimator defaults to the subject
+    # cluster bootstrap with DEFAULT_N_BOOT resamples and DEFAULT_SEED; the textbook interval
+    # is beside it. Same resampled subjects as limits_of_agreement, so the same method text.
+    from cohort.domain.options import DEFAULT_N_BOOT, DEFAULT_SEED
+    from cohort.stats import limits_of_agreement
+
+    x, y, subject = cohort_data(n_subjects=8)
+    expected = limits_of_agreement(x, y, subject=subject).bias.ci.method
+    assert (
+        expected
+        == f"subject cluster bootstrap, percentile, B={DEFAULT_N_BOOT}, seed={DEFAULT_SEED}"
+    )
+    for fn in (passing_bablok, deming):
+        fit = fn(x, y, subject=subject)
+        assert fit.slope.ci.method == fit.intercept.ci.method == expected
+        assert fit.slope.ci != fit.slope.analytic_ci and fit.slope.ci.estimable
+        explicit = fn(x, y, subject=subject, n_boot=DEFAULT_N_BOOT, seed=DEFAULT_SEED)
+        assert explicit.slope.ci == fit.slope.ci
+        assert "ignores the clustering" not in fit.note
 
 
 def test_to_frame_is_one_tidy_row_per_quantity():
@@ -416,7 +438,7 @@ def test_to_frame_is_one_tidy_row_per_quantity():
     assert frame.loc[0, "n_subjects"] == len(set(subject)) and frame.loc[0, "n_pairs"] == x.size
     # with the bootstrap, the jackknife interval (Linnet 1990) is still given beside it
     assert "jackknife" in boot.slope.analytic_ci.method
-    assert boot.slope.analytic_ci == deming(x, y).slope.ci
+    assert boot.slope.analytic_ci == deming(x, y, n_boot=0).slope.ci
 
 
 def test_repr_and_summary_show_estimate_and_interval():
@@ -440,8 +462,11 @@ def test_repr_and_summary_show_estimate_and_interval():
         ({"reference": [[1, 2]], "test": [[1, 2]]}, "one-dimensional"),
         ({"confidence_level": 1.0}, "confidence_level"),
         ({"n_boot": -1}, "n_boot"),
-        ({"n_boot": 10, "subject": ["a", "b"]}, "one id per pair"),
-        ({"n_boot": 10, "subject": ["a", None, "b", "c"]}, "missing ids"),
+        ({"n_boot": 20, "subject": ["a", "b"]}, r"subject must have one label per pair \(4\)"),
+        ({"n_boot": 20, "subject": ["a", None, "b", "c"]}, "subject must not be missing, got 1"),
+        # a bool is no subject labels: the shared check's ValueError (was a TypeError here)
+        ({"n_boot": 20, "subject": True}, r"subject must have one label per pair \(4\)"),
+        ({"n_boot": 19}, "n_boot must be 0 .* from 20 to"),  # the study file's rule
     ],
 )
 def test_invalid_input_raises(kwargs, match):
@@ -524,7 +549,7 @@ def test_deming_jackknife_interval_equals_a_leave_one_out_loop():
     # textbook formula; CI = estimate -+ t(0.975, n - 2) SE
     x, y = deming_data(n=40, seed=6)
     n = x.size
-    fit = deming(x, y, error_ratio=1.5)
+    fit = deming(x, y, error_ratio=1.5, n_boot=0)
     loo = np.array([textbook_deming(np.delete(x, i), np.delete(y, i), 1.5) for i in range(n)])
     se = np.sqrt((n - 1) / n * np.sum((loo - loo.mean(axis=0)) ** 2, axis=0))
     t = stats.t.ppf(0.975, n - 2)
