@@ -28,9 +28,6 @@ import time
 import warnings
 from pathlib import Path
 
-import numpy as np
-import pandas as pd
-
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
 from cohort.analysis.group_comparison import group_comparison_table
@@ -38,6 +35,7 @@ from cohort.analysis.group_tables import ALL_GROUPS
 from cohort.demo import REFERENCE, make_demo
 from cohort.domain.segments import SEGMENTS
 from cohort.stats.models import GEE_PATH, JOINT_GROUP, MIXED_PATH
+from tests.analysis.group_data import demo_findings as findings
 
 
 def study_frames(n_subjects: int, seed: int = 20261202):
@@ -59,24 +57,6 @@ def study_frames(n_subjects: int, seed: int = 20261202):
     paired = paired.rename(columns={"value": "test_value", "value_ref": "reference_value"})
     paired["reference"] = REFERENCE
     return values.reset_index(drop=True), subjects, paired
-
-
-def findings(values: pd.DataFrame) -> tuple[pd.DataFrame, pd.DataFrame]:
-    r2 = values[values["parameter"].eq("r2star")]
-    cut = np.where(r2["field_strength"] > 2.0, 79.0, 50.0)
-    fld = values[values["parameter"].eq("field")]
-    cols = ["subject", "group", "method", "segment"]
-    segment = pd.concat(
-        [
-            r2[cols].assign(finding="hemorrhage", positive=r2["value"].to_numpy() > cut),
-            fld[cols].assign(finding="field shift", positive=fld["value"].abs().to_numpy() > 20),
-        ],
-        ignore_index=True,
-    )
-    subject = segment.groupby(["subject", "group", "method", "finding"], as_index=False)[
-        "positive"
-    ].any()
-    return segment, subject
 
 
 def run(values, subjects, paired, segment, subject, **options):

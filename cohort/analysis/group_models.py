@@ -219,16 +219,9 @@ def group_models(
     joint: group: F = 14.56, p = 0.019
     """
     values = require_columns(values, "values", ("subject", "method", "parameter", "value"))
-    correction = check_correction(correction)
-    check_confidence_level(confidence_level)
-    info = subject_info(subjects, covariates, values)
-    order = ordered_groups(info["group"], group_order, "subjects")
-    kind, why = choose_model_path(
-        largest_fit(values, ["parameter", "method"]), path, max_mixed_observations
-    )
-    return linear_models(
-        values, segment_values, GROUP_DIFFERENCE, subjects, order, covariates, kind, why,
-        correction, confidence_level,
+    return _checked_linear_models(
+        values, segment_values, GROUP_DIFFERENCE, subjects, group_order, covariates, path,
+        max_mixed_observations, correction, confidence_level,
     )  # fmt: skip
 
 
@@ -263,17 +256,25 @@ def method_group_interaction(
     """
     columns = ("parameter", "method", "subject", "group", "reference_value", "test_value")
     paired = require_columns(paired, "paired", columns)
-    correction = check_correction(correction)
-    check_confidence_level(confidence_level)
-    info = subject_info(subjects, covariates, paired)
-    order = ordered_groups(info["group"], group_order, "subjects")
-    kind, why = choose_model_path(
-        largest_fit(paired, ["parameter", "method"]), path, max_mixed_observations
-    )
-    return linear_models(
-        paired, method_differences, METHOD_BY_GROUP, subjects, order, covariates, kind, why,
-        correction, confidence_level,
+    return _checked_linear_models(
+        paired, method_differences, METHOD_BY_GROUP, subjects, group_order, covariates, path,
+        max_mixed_observations, correction, confidence_level,
     )  # fmt: skip
+
+
+def _checked_linear_models(
+    frame, response, label, subjects, group_order, covariates, path, max_mixed, correction, level
+) -> pd.DataFrame:
+    """The options checked, the group order and model path chosen, then :func:`linear_models`
+    (what :func:`group_models` and :func:`method_group_interaction` share)."""
+    correction = check_correction(correction)
+    check_confidence_level(level)
+    info = subject_info(subjects, covariates, frame)
+    order = ordered_groups(info["group"], group_order, "subjects")
+    kind, why = choose_model_path(largest_fit(frame, ["parameter", "method"]), path, max_mixed)
+    return linear_models(
+        frame, response, label, subjects, order, covariates, kind, why, correction, level
+    )
 
 
 def finding_models(
