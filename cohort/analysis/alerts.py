@@ -12,7 +12,7 @@ from __future__ import annotations
 
 import math
 import warnings
-from collections.abc import Mapping
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass
 from typing import Any
 
@@ -64,6 +64,7 @@ class _Rule:
     bias_ratio: float
     floor: Mapping[str, float]
     level: str
+    label: Callable[[str], str] = str
 
 
 def _check(agreement_rows: pd.DataFrame, detection: pd.DataFrame, **options: float) -> None:
@@ -87,7 +88,7 @@ def _low_sensitivity(
     if not (math.isfinite(sens) and sens < rule.sensitivity_max):
         return []
     message = (
-        f"{m} against the reference, {p}: overall CCC {ccc:.3f} >= {rule.ccc_min:g}, "
+        f"{rule.label(m)} against the reference, {p}: overall CCC {ccc:.3f} >= {rule.ccc_min:g}, "
         f"but {rule.level}-level sensitivity for finding {f!r} is {sens:.3f} "
         f"< {rule.sensitivity_max:g}"
     )
@@ -106,7 +107,7 @@ def _bias_shift(
     if shift < limit:
         return []
     message = (
-        f"{m}, {p}: overall CCC {ccc:.3f} >= {rule.ccc_min:g}, but the bias in "
+        f"{rule.label(m)}, {p}: overall CCC {ccc:.3f} >= {rule.ccc_min:g}, but the bias in "
         f"segments the reference calls {f!r} positive is {b_pos:.4g} against "
         f"{b_neg:.4g} in negative ones (shift {shift:.4g} >= {limit:.4g})"
     )
@@ -122,6 +123,7 @@ def deceptive_agreement(
     bias_ratio: float = RunOptions.bias_ratio,
     min_bias_difference: Mapping[str, float] | None = None,
     level: str = "segment",
+    label: Callable[[str], str] = str,
 ) -> list[AgreementWarning]:
     """Warn where high overall agreement hides poor agreement on a finding.
 
@@ -138,7 +140,8 @@ def deceptive_agreement(
       default 2: at least double, or of the other sign, or near zero where b_neg is not).
 
     ``agreement_rows`` needs columns ``parameter, method, stratum, ccc, bias``; ``detection``
-    is the ``findings_agreement`` table. Each warning is returned and emitted as
+    is the ``findings_agreement`` table; ``label`` gives a method's display label in the
+    messages. Each warning is returned and emitted as
     :class:`DeceptiveAgreementWarning`. Checked against the rule applied by hand to a
     simulated cohort with planted missed lesions (tests).
 
@@ -165,7 +168,7 @@ def deceptive_agreement(
         bias_ratio=bias_ratio,
     )
     floor = {**DEFAULT_MIN_BIAS_DIFFERENCE, **(min_bias_difference or {})}
-    rule = _Rule(ccc_min, sensitivity_max, bias_ratio, floor, level)
+    rule = _Rule(ccc_min, sensitivity_max, bias_ratio, floor, level, label)
     agree = agreement_rows.set_index(["parameter", "method", "stratum"])
     if not agree.index.is_unique:
         raise ValueError("agreement_rows must have one row per parameter, method and stratum")
@@ -176,7 +179,7 @@ def deceptive_agreement(
     det = detection[detection["level"].eq(level) & detection["stratum"].eq("all")]
     out: list[AgreementWarning] = []
     for row in det.itertuples(index=False):
-        p, m, f = row.parameter, row.method, row.finding
+        p, m, f = str(row.parameter), str(row.method), str(row.finding)
         ccc = lookup((p, m, "all"), "ccc")
         if not (math.isfinite(ccc) and ccc >= ccc_min):
             continue

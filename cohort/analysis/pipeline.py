@@ -22,12 +22,18 @@ from typing import Any
 import pandas as pd
 
 from cohort.analysis.agreement_table import agreement_table
-from cohort.analysis.alerts import deceptive_agreement
+from cohort.analysis.alerts import AgreementWarning, deceptive_agreement
 from cohort.analysis.display import display_tables
 from cohort.analysis.finding_agreement import finding_strata, findings_agreement, missed_findings
 from cohort.analysis.findings import FindingsResult, evaluate_findings
 from cohort.analysis.group_comparison import study_group_comparison
+from cohort.analysis.lesion_alerts import (
+    bias_shift_alerts,
+    missed_lesion_alerts,
+    without_stronger,
+)
 from cohort.analysis.swaps import SwapScreen, swap_screen_with
+from cohort.analysis.verdicts import method_verdicts
 from cohort.domain.options import RunOptions, override_options
 from cohort.domain.problems import problems_frame
 from cohort.domain.thresholds import SwapOptions, thresholds_table
@@ -38,6 +44,7 @@ Progress = Callable[[str], None]
 
 TABLES: Mapping[str, str] = MappingProxyType(
     {
+        "method_verdicts": "each test method against the acceptance criteria set in advance",
         "agreement": "every agreement statistic per parameter, method and stratum",
         "thresholds": "the finding thresholds in force, with their sources",
         "findings_segment": "each segment classified per method and finding",
@@ -56,7 +63,8 @@ TABLES: Mapping[str, str] = MappingProxyType(
     }
 )
 """The tables an :class:`Analysis` names (and the output folder's ``tables/`` holds), in
-order; the group comparison's tables (``group_comparison``, ``group_descriptives``, ...; see
+order (``method_verdicts`` only when the study declares acceptance criteria); the group
+comparison's tables (``group_comparison``, ``group_descriptives``, ...; see
 :meth:`cohort.analysis.group_comparison.GroupComparison.tables`) follow ``swap_flags``."""
 
 
@@ -71,7 +79,8 @@ class Analysis:
     options : the :class:`~cohort.domain.options.RunOptions` in force.
     findings : the classification of every unit (:class:`FindingsResult`).
     tables : tidy tables by name, in the order of :data:`TABLES`.
-    alerts : deceptive-agreement and swap warnings, to read first.
+    alerts : deceptive-agreement, missed-lesion, over-calling and swap warnings, to read
+        first.
     display : the summaries the figures draw (:func:`cohort.analysis.display.display_tables`),
         empty when the run draws no figures; not written as tables.
     warnings : warnings raised by the estimators (each once) and the group model used.
@@ -183,22 +192,17 @@ def analyse(
     swaps = step(
         "swaps", "fat-water swap screen", lambda: swap_screen_with(study.paired, swap_options)
     )
-    alerts_found = step(
+    alerts = step(
         "alerts",
-        "deceptive-agreement screen",
-        lambda: deceptive_agreement(
-            agreement,
-            detection,
-            ccc_min=options.ccc_min,
-            sensitivity_max=options.sensitivity_max,
-            bias_ratio=options.bias_ratio,
-        ),
+        "alerts: deceptive agreement, missed and over-called lesions",
+        lambda: _alerts(study, findings, agreement, detection, options),
     )
-    alerts = [a.message for a in alerts_found] + _swap_alerts(swaps)
+    alerts += _swap_alerts(swaps, study.method_label)
     comparison = step(
         "groups", "group comparisons", lambda: _group_comparison(study, findings, options)
     )
     tables = {
+        **_verdicts(study, agreement, detection),
         "agreement": agreement,
         "thresholds": thresholds_table(definitions),
         "findings_segment": findings.segments,
@@ -263,6 +267,60 @@ def _group_comparison(study: Study, findings: FindingsResult, options: RunOption
     )
 
 
+def _verdicts(
+    study: Study, agreement: pd.DataFrame, detection: pd.DataFrame
+) -> dict[str, pd.DataFrame]:
+    """The ``method_verdicts`` table, when the study declares acceptance criteria."""
+    acceptance = study.settings.acceptance
+    if not acceptance.declared:
+        return {}
+    return {
+        "method_verdicts": method_verdicts(agreement, detection, acceptance, study.test_methods)
+    }
+
+
+def _alerts(
+    study: Study,
+    findings: FindingsResult,
+    agreement: pd.DataFrame,
+    detection: pd.DataFrame,
+    options: RunOptions,
+) -> list[str]:
+    """Every alert, strongest first: deceptive agreement (high CCC yet lesions missed), then
+    missed lesions, bias shifts in lesions and over-calling of any method
+    (:mod:`cohort.analysis.lesion_alerts`), each method in the study's order."""
+    deceptive: list[AgreementWarning] = deceptive_agreement(
+        agreement,
+        detection,
+        ccc_min=options.ccc_min,
+        sensitivity_max=options.sensitivity_max,
+        bias_ratio=options.bias_ratio,
+        label=study.method_label,
+    )
+    labels = {d.name: d.label or d.name for d in study.settings.findings}
+    methods = study.test_methods
+    lesions = missed_lesion_alerts(
+        detection,
+        findings.segments,
+        study.settings.acceptance,
+        reference=study.reference,
+        methods=methods,
+        label=study.method_label,
+        finding_labels=labels,
+    )
+    lesions += bias_shift_alerts(
+        agreement,
+        detection,
+        methods=methods,
+        bias_ratio=options.bias_ratio,
+        label=study.method_label,
+        finding_labels=labels,
+    )
+    rank = {m: i for i, m in enumerate(methods)}
+    kept = sorted(without_stronger(lesions, deceptive), key=lambda a: rank.get(a.method, 0))
+    return [w.message for w in deceptive] + [a.message for a in kept]
+
+
 def _present(options: SwapOptions, paired: pd.DataFrame) -> SwapOptions:
     """The swap options without named methods that have no pair left (every value of theirs
     was excluded: the exclusions table says why)."""
@@ -271,10 +329,11 @@ def _present(options: SwapOptions, paired: pd.DataFrame) -> SwapOptions:
     return replace(options, magnitude_only_methods=kept)
 
 
-def _swap_alerts(swaps: SwapScreen) -> list[str]:
+def _swap_alerts(swaps: SwapScreen, label: Callable[[str], str]) -> list[str]:
     return [
         f"fat-water swap screen: {row.n_flagged} of {row.n_pairs} fat-fraction pairs of "
-        f"{row.method} flagged ({row.n_swap_suspect} closer to 100 minus the reference, "
+        f"{label(str(row.method))} flagged ({row.n_swap_suspect} closer to 100 minus the "
+        "reference, "
         f"{row.n_not_comparable} not comparable with a magnitude-only method); see "
         "tables/swap_flags.csv and exclude them explicitly if justified"
         for row in swaps.counts.itertuples()

@@ -5,7 +5,7 @@ The tables and their keys (the ``[findings]`` table's rules are in
 :mod:`cohort.io.settings` reads a study file with them, once)::
 
     [study]     title, values, subjects, reference, segment_model, groups, group_labels,
-                identifying_columns                  STUDY_RULES
+                methods, method_labels, identifying_columns      STUDY_RULES
     [units]     ff, field                            UNITS_RULES
     [field]     referencing, remote_segments         FIELD_RULES
     [checks]    plausibility limits                  CHECK_RULES, Checks
@@ -124,6 +124,8 @@ STUDY_RULES: MappingProxyType[str, Rule] = MappingProxyType(
         "segment_model": choice(tuple(MODELS)),
         "groups": texts(),
         "group_labels": labels(),
+        "methods": texts(min_items=1),
+        "method_labels": labels(),
         "identifying_columns": texts(),
     }
 )
@@ -145,24 +147,51 @@ FIELD_RULES: MappingProxyType[str, Rule] = MappingProxyType(
 )
 
 
-def _check_study(
-    table: Mapping[str, Any], bad: frozenset[str], file: str, document: Mapping[str, Any]
+def _labels_problems(
+    table: Mapping[str, Any], bad: frozenset[str], file: str, what: str
 ) -> list[Problem]:
-    """Display labels name declared groups (when groups are declared)."""
-    if "groups" in bad or "group_labels" in bad or not table.get("groups"):
+    """Display labels of ``[study.<what>_labels]`` name entries of ``[study] <what>s`` (when
+    that list is given)."""
+    key, labels_key = f"{what}s", f"{what}_labels"
+    if key in bad or labels_key in bad or not table.get(key):
         return []
-    groups = [g.strip() for g in table["groups"]]
+    names = [g.strip() for g in table[key]]
+    reference = table.get("reference")
+    if what == "method" and isinstance(reference, str):
+        names.append(reference.strip())  # the reference may have a label too
     return [
         study_problem(
             file,
-            f"[study.group_labels] {name} labels a group that is not declared in [study] "
-            f"groups{did_you_mean(name, groups)}",
+            f"[study.{labels_key}] {name} labels a {what} that is not declared in [study] "
+            f"{key}{did_you_mean(name, names)}",
             name,
-            f"one of {groups}",
+            f"one of {names}",
         )
-        for name in table.get("group_labels", {})
-        if name not in groups
+        for name in table.get(labels_key, {})
+        if name not in names
     ]
+
+
+def _check_study(
+    table: Mapping[str, Any], bad: frozenset[str], file: str, document: Mapping[str, Any]
+) -> list[Problem]:
+    """Display labels name declared groups and methods (when declared); the methods listed
+    are test methods, so the reference is not among them."""
+    problems = _labels_problems(table, bad, file, "group")
+    problems += _labels_problems(table, bad, file, "method")
+    reference = table.get("reference")
+    if "methods" not in bad and isinstance(reference, str):
+        if reference.strip() in [m.strip() for m in table.get("methods", [])]:
+            problems.append(
+                study_problem(
+                    file,
+                    "[study] methods lists the reference; list the test methods only, in the "
+                    "order outputs should show them",
+                    reference,
+                    "test methods only",
+                )
+            )
+    return problems
 
 
 def _check_field(

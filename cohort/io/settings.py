@@ -10,10 +10,14 @@ A study file has these tables (all keys are optional except ``values``, ``subjec
     reference = "reference-fit"
     segment_model = "aha17"            # or "aha16"
     groups = ["control", "acute", "chronic"]   # order of groups in every output
+    methods = ["net-full", "quickmap"]  # test methods in the order of every output
     identifying_columns = ["hospital_number"]  # replaced by keyed codes when pseudonymised
 
     [study.group_labels]                 # optional display labels of declared groups
     control = "Healthy controls"
+
+    [study.method_labels]                # optional display labels of listed methods
+    quickmap = "Fast three-echo fit"
 
     [units]
     ff = "percent"                       # or "fraction" (0-1)
@@ -32,8 +36,14 @@ A study file has these tables (all keys are optional except ``values``, ``subjec
     implausible = "refuse"               # or "exclude"
     ff_percent_confirmed = false         # true: fat fractions all within 0-1 really are percent
 
-Tables ``[analysis]`` (:mod:`cohort.domain.options`) and ``[findings]``
-(:mod:`cohort.domain.thresholds`) are part of it. This module is the one place that parses a
+    [acceptance.limits]                  # criteria set in advance (cohort.domain.acceptance)
+    ff = 3.0                             # both limits of agreement within +/- 3 pp
+    [acceptance.findings]
+    hemorrhage = 0.8                     # segment-level sensitivity at least 0.8
+
+Tables ``[analysis]`` (:mod:`cohort.domain.options`), ``[findings]``
+(:mod:`cohort.domain.thresholds`) and ``[acceptance]`` (:mod:`cohort.domain.acceptance`) are
+part of it. This module is the one place that parses a
 study file: :func:`read_study_file` (and :func:`build_settings`, the same from flags or a
 notebook) checks every table at once, listing every problem of every table in one
 :class:`StudyError`, and returns a complete, typed :class:`StudySettings` holding the
@@ -53,6 +63,7 @@ from pathlib import Path
 from types import MappingProxyType
 from typing import Any
 
+from cohort.domain.acceptance import Acceptance
 from cohort.domain.options import (
     ANALYSIS_RULES,
     ANALYSIS_SCHEMA,
@@ -73,6 +84,7 @@ from cohort.domain.options import (
 from cohort.domain.problems import Problem, StudyError
 from cohort.domain.rules import TableSchema, check_document
 from cohort.domain.thresholds import DEFAULT_FINDINGS, FindingDefinition, SwapOptions
+from cohort.io.acceptance_table import ACCEPTANCE_SCHEMA, build_acceptance
 from cohort.io.findings_table import FINDINGS_SCHEMA, build_findings
 
 
@@ -87,6 +99,12 @@ class StudySettings:
     segment_model: str = DEFAULT_SEGMENT_MODEL
     groups: tuple[str, ...] = ()
     group_labels: dict[str, str] = field(default_factory=dict)
+    methods: tuple[str, ...] = ()
+    """Test methods in the order every output shows them (empty: order of first appearance
+    in the values table)."""
+    method_labels: dict[str, str] = field(default_factory=dict)
+    """Display labels of methods (figures, overview, alerts, methods text); tables keep the
+    method names of the values table."""
     ff_unit: str = DEFAULT_FF_UNIT
     field_unit: str = DEFAULT_FIELD_UNIT
     field_referencing: str = DEFAULT_FIELD_REFERENCING
@@ -101,10 +119,13 @@ class StudySettings:
     """The ``[findings]`` table: the findings to evaluate."""
     swap: SwapOptions = field(default_factory=SwapOptions)
     """The ``[findings]`` table: options of the fat-water swap screen."""
+    acceptance: Acceptance = field(default_factory=Acceptance)
+    """The ``[acceptance]`` table: criteria set in advance (none unless declared)."""
     study_file: Path | None = None
     as_written: Mapping[str, Any] = field(default_factory=dict)
-    """The ``[analysis]`` and ``[findings]`` tables as the study file gave them: recorded in
-    the manifest only (the parsed forms are :attr:`options`, :attr:`findings`, :attr:`swap`)."""
+    """The ``[analysis]``, ``[findings]`` and ``[acceptance]`` tables as the study file gave
+    them: recorded in the manifest only (the parsed forms are :attr:`options`,
+    :attr:`findings`, :attr:`swap`, :attr:`acceptance`)."""
 
     def with_options(self, **changes: Any) -> StudySettings:
         return replace(self, **changes)
@@ -152,6 +173,8 @@ class StudySettings:
             "segment_model": self.segment_model,
             "groups": list(self.groups),
             "group_labels": dict(self.group_labels),
+            "methods": list(self.methods),
+            "method_labels": dict(self.method_labels),
             "units": {"ff": self.ff_unit, "field": self.field_unit},
             "field": {
                 "referencing": self.field_referencing,
@@ -171,11 +194,12 @@ STUDY_FILE: MappingProxyType[str, TableSchema] = MappingProxyType(
         "checks": CHECKS_SCHEMA,
         "analysis": ANALYSIS_SCHEMA,
         "findings": FINDINGS_SCHEMA,
+        "acceptance": ACCEPTANCE_SCHEMA,
     }
 )
 """Every table a study file may hold, with the rules of its keys: the one place where the
 study file's format is checked (:func:`cohort.domain.rules.check_document`)."""
-RECORDED_TABLES = ("analysis", "findings")
+RECORDED_TABLES = ("analysis", "findings", "acceptance")
 """Tables recorded as written in the manifest (:attr:`StudySettings.as_written`)."""
 
 
@@ -252,6 +276,8 @@ def _settings(
         segment_model=study.get("segment_model", DEFAULT_SEGMENT_MODEL),
         groups=tuple(g.strip() for g in study.get("groups", ())),
         group_labels={str(k): str(v) for k, v in study.get("group_labels", {}).items()},
+        methods=tuple(m.strip() for m in study.get("methods", ())),
+        method_labels={str(k): str(v) for k, v in study.get("method_labels", {}).items()},
         ff_unit=units.get("ff", DEFAULT_FF_UNIT),
         field_unit=units.get("field", DEFAULT_FIELD_UNIT),
         field_referencing=fieldopts.get("referencing", DEFAULT_FIELD_REFERENCING),
@@ -261,6 +287,7 @@ def _settings(
         options=_run_options(document.get("analysis", {})),
         findings=findings,
         swap=swap,
+        acceptance=build_acceptance(document.get("acceptance")),
         study_file=study_file,
         as_written={k: document[k] for k in RECORDED_TABLES if k in document},
     )
@@ -287,6 +314,8 @@ def build_settings(
     segment_model: str = DEFAULT_SEGMENT_MODEL,
     groups: Any = (),
     group_labels: Any = None,
+    methods: Any = (),
+    method_labels: Any = None,
     ff_unit: str = DEFAULT_FF_UNIT,
     field_unit: str = DEFAULT_FIELD_UNIT,
     field_referencing: str = DEFAULT_FIELD_REFERENCING,
@@ -300,8 +329,8 @@ def build_settings(
     """Check option values and build :class:`StudySettings` (the flag form, or a notebook).
 
     The values obey the rules of the study file (:data:`STUDY_FILE`); ``tables`` may give the
-    ``[analysis]`` and ``[findings]`` tables as a study file would. Problems are located at
-    ``source`` and raised together as one :class:`StudyError`.
+    ``[analysis]``, ``[findings]`` and ``[acceptance]`` tables as a study file would. Problems
+    are located at ``source`` and raised together as one :class:`StudyError`.
 
     Examples
     --------
@@ -333,6 +362,10 @@ def build_settings(
     }
     if group_labels:
         study["group_labels"] = group_labels
+    if methods:
+        study["methods"] = list(methods) if isinstance(methods, tuple) else methods
+    if method_labels:
+        study["method_labels"] = method_labels
     document: dict[str, Any] = {
         "study": study,
         "units": {"ff": ff_unit, "field": field_unit},

@@ -20,6 +20,7 @@ from cohort.domain.problems import Problem, ProblemLog, StudyError
 from cohort.domain.segments import SEGMENTS, segment_model
 from cohort.domain.units import PARAMETERS, fraction_to_percent, ppm_to_hz, t2star_ms_to_r2star
 from cohort.io.loading import ROW, read_table
+from cohort.io.method_order import method_order, method_problems, ordered_methods
 from cohort.io.settings import StudySettings, read_study_file
 from cohort.io.subject_checks import check_subjects
 from cohort.io.validation import PER_CODE, check_across
@@ -79,9 +80,17 @@ class Study:
 
     @property
     def methods(self) -> tuple[str, ...]:
-        """All methods, the reference first."""
-        others = sorted(set(self.values["method"].unique()) - {self.reference})
-        return (self.reference, *others)
+        """All methods, the reference first, then the test methods in the study's order
+        (``[study] methods``, else their first appearance; :mod:`cohort.io.method_order`)."""
+        return method_order(self.values["method"].unique(), self.reference, self.settings.methods)
+
+    def method_label(self, method: object) -> str:
+        """The display label of a method (``[study.method_labels]``), else its name."""
+        return self.settings.method_labels.get(str(method), str(method))
+
+    def group_label(self, group: object) -> str:
+        """The display label of a group (``[study.group_labels]``), else its name."""
+        return self.settings.group_labels.get(str(group), str(group))
 
     @property
     def test_methods(self) -> tuple[str, ...]:
@@ -237,12 +246,15 @@ def load_study(source: str | Path | StudySettings) -> Study:
     log.raise_if_errors()
     shift = _settle(records, settings)
     canonical = _canonical_values(records, subjects, shift)
-    paired = _pair(canonical, settings.reference)
+    order = method_order(canonical["method"], settings.reference, settings.methods)
+    paired = _pair(canonical, settings.reference, order)
     n_test = int((records["status"].eq("used") & records["method"].ne(settings.reference)).sum())
     if len(paired) != n_test:
         raise RuntimeError("a used test value did not enter exactly one pair")  # invariant
     for frame in (records, canonical, paired):
         _compact(frame)
+    ordered_methods(canonical, order)
+    ordered_methods(paired, order[1:])
     return Study(settings, subjects, canonical, paired, records, log.warnings)
 
 
@@ -268,8 +280,19 @@ def check_study(source: str | Path | StudySettings) -> Study:
 
 
 def _check_named_methods(values: pd.DataFrame, settings: StudySettings, log: ProblemLog) -> None:
-    """Methods the study file names (``[findings] magnitude_only_methods``) must be test
-    methods of the values table: found when the study is checked, not after the analysis."""
+    """Methods the study file names (``[study] methods`` and ``method_labels``,
+    ``[findings] magnitude_only_methods``, ``[acceptance] baseline``) must be test methods
+    of the values table: found when the study is checked, not after the analysis."""
+    log.problems.extend(
+        method_problems(
+            values["method"].astype(str),
+            settings.reference,
+            settings.methods,
+            settings.method_labels,
+            settings.acceptance.baseline,
+            settings.source_name,
+        )
+    )
     named = settings.swap.magnitude_only_methods
     present = set(values["method"].astype(str))
     tests = sorted(present - {settings.reference})
@@ -431,7 +454,7 @@ def _canonical_values(
     return canon.reset_index(drop=True)
 
 
-def _pair(canon: pd.DataFrame, reference: str) -> pd.DataFrame:
+def _pair(canon: pd.DataFrame, reference: str, order: tuple) -> pd.DataFrame:
     """Test-method rows with the reference value of the same (subject, segment, parameter).
 
     The join and the sort run on integer codes of the keys (text sorts by code point either
@@ -440,7 +463,7 @@ def _pair(canon: pd.DataFrame, reference: str) -> pd.DataFrame:
     """
     is_ref = canon["method"].eq(reference).to_numpy()
     subject, _ = pd.factorize(canon["subject"], sort=True)
-    method, _ = pd.factorize(canon["method"], sort=True)
+    method = pd.Categorical(canon["method"].astype(str), categories=order).codes
     parameter, parameters = pd.factorize(canon["parameter"])
     segment = canon["segment"].to_numpy(dtype=np.int64)
     key = _key_codes(subject, segment, parameter)
@@ -449,7 +472,7 @@ def _pair(canon: pd.DataFrame, reference: str) -> pd.DataFrame:
     test_rows, ref_rows = test_rows[match >= 0], ref_rows[match[match >= 0]]
     order = {p: i for i, p in enumerate(PARAMETERS)}
     rank = np.array([order.get(p, len(order)) for p in parameters], dtype=np.int64)[parameter]
-    # parameter (in PARAMETERS order), method, subject, segment; every key is unique
+    # parameter (in PARAMETERS order), method (study order), subject, segment; keys unique
     sort = np.lexsort((segment[test_rows], subject[test_rows], method[test_rows], rank[test_rows]))
     test_rows, ref_rows = test_rows[sort], ref_rows[sort]
     paired = canon.iloc[test_rows].reset_index(drop=True)
