@@ -14,6 +14,8 @@ from cohort.analysis.pipeline import Analysis
 from cohort.domain.segments import segment_model
 from cohort.domain.units import PARAMETERS
 from cohort.domain.wording import percent_level
+from cohort.report.methods_acceptance import REFERENCES as ACCEPTANCE_REFERENCES
+from cohort.report.methods_acceptance import acceptance_lines, alert_lines
 from cohort.stats.regression import PB_WEIGHTED_MAX_N
 
 REFERENCES: dict[str, str] = {
@@ -112,6 +114,8 @@ def methods_markdown(analysis: Analysis) -> str:
         "",
         "## Findings",
         *_findings_lines(analysis),
+        *alert_lines(analysis),
+        *acceptance_lines(analysis),
         *_groups_lines(analysis),
         "",
         "## Reporting",
@@ -119,7 +123,7 @@ def methods_markdown(analysis: Analysis) -> str:
         "Analyses were run with cohort (research software; not a diagnostic device).",
         "",
         "## References",
-        *[f"- [{key}] {ref}" for key, ref in REFERENCES.items()],
+        *[f"- [{key}] {ref}" for key, ref in {**REFERENCES, **ACCEPTANCE_REFERENCES}.items()],
         "",
     ]
     return "\n".join(text)
@@ -137,7 +141,7 @@ def _data_paragraph(analysis: Analysis) -> str:
         f"({_join(f'{g}: {(study.subjects.group == g).sum()}' for g in study.groups)}) using the "
         f"AHA {len(model.numbers)}-segment model [cerqueira2002]. The method "
         f"'{study.reference}' served as reference; "
-        f"{_join(repr(m) for m in study.test_methods)} "
+        f"{_join(_method_name(study, m) for m in study.test_methods)} "
         f"{'was' if len(study.test_methods) == 1 else 'were'} "
         "compared with it on the segments where both methods had a value. "
         + (
@@ -163,6 +167,12 @@ def _data_paragraph(analysis: Analysis) -> str:
         f"{analysis.tables['record_accounting']['excluded'].item()} were excluded "
         "(reasons listed in the exclusions table). " + _plausibility_sentence(s)
     )
+
+
+def _method_name(study, method: str) -> str:
+    """A method as the methods text names it: its label, with its name where they differ."""
+    label = study.method_label(method)
+    return f"'{method}'" if label == method else f"{label} ('{method}')"
 
 
 def _agreement_paragraph(analysis: Analysis) -> str:
@@ -255,10 +265,7 @@ def _findings_lines(analysis: Analysis) -> list[str]:
         f"predictive values with Wilson score intervals [newcombe1998] (segment and territory "
         f"level also with the subject cluster bootstrap, B = {o.n_boot}), Cohen's kappa "
         "[cohen1960] and the exact McNemar test. Every reference-positive unit that a test "
-        "method did not flag is listed. A warning was raised when the concordance "
-        f"correlation was at least {o.ccc_min:g} while sensitivity for a finding was below "
-        f"{o.sensitivity_max:g}, or when the bias in reference-positive segments differed "
-        f"markedly (by a factor {o.bias_ratio:g}) from the bias elsewhere. Fat fractions were "
+        "method did not flag is listed. Fat fractions were "
         "screened for fat-water swaps (test value closer to 100 minus the reference than to "
         "the reference).",
     ]

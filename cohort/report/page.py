@@ -17,8 +17,8 @@ from cohort import __version__
 from cohort.analysis.pipeline import Analysis
 from cohort.domain.cautions import CAUTION_LONG
 from cohort.domain.units import PARAMETERS
-from cohort.domain.wording import percent_level
 from cohort.report.html import bullet_list, esc, figure, fmt, page, section, table
+from cohort.report.overview import interval_note, key_results, overview_table
 
 
 def with_ci(
@@ -86,49 +86,26 @@ def _figures(records: Sequence[Any], section_name: str, parameter: str | None = 
     return "\n".join(parts)
 
 
-def _key_results(analysis: Analysis) -> str:
-    parts = []
-    if analysis.alerts:
-        parts += [
-            f'<div class="alert"><strong>Warning.</strong> {esc(a)}</div>' for a in analysis.alerts
-        ]
-    else:
-        parts.append(
-            '<div class="ok">No deceptive-agreement or fat-water swap warning was raised '
-            "with the settings in force.</div>"
-        )
-    agreement = analysis.tables["agreement"]
-    overall = agreement[agreement["stratum"].eq("all")]
-    items = []
-    for _, row in overall.iterrows():
-        unit = PARAMETERS[row["parameter"]].unit
-        items.append(
-            f"{PARAMETERS[row['parameter']].label}, {row['method']} vs {row['reference']}: "
-            f"bias {fmt(row['bias'])} {unit} "
-            f"({fmt(row['bias_ci_low'])} to {fmt(row['bias_ci_high'])}), "
-            f"limits of agreement {fmt(row['loa_low'])} to {fmt(row['loa_high'])} {unit}, "
-            f"CCC {fmt(row['ccc'])} ({fmt(row['ccc_ci_low'])} to {fmt(row['ccc_ci_high'])}); "
-            f"{int(row['n_subjects'])} subjects, {int(row['n_pairs'])} segment pairs"
-        )
-    detection = analysis.tables["findings_agreement"]
-    for _, row in detection[
-        detection["stratum"].eq("all") & detection["level"].isin(["segment", "subject"])
-    ].iterrows():
-        items.append(
-            f"{row['finding']} ({row['level']} level), {row['method']}: sensitivity "
-            f"{fmt(row['sensitivity'])} ({fmt(row['sensitivity_ci_low'])} to "
-            f"{fmt(row['sensitivity_ci_high'])}), {int(row['fn'])} reference-positive "
-            f"{row['level']}s missed, {int(row['fp'])} extra"
-        )
-    parts.append(bullet_list(items))
+def _overview(analysis: Analysis, figures: Sequence[Any]) -> str:
+    """Alerts first, then the overview table and figure, then the key results."""
+    parts = [
+        f'<div class="alert"><strong>Alert.</strong> {esc(a)}</div>' for a in analysis.alerts
+    ] or [
+        '<div class="ok">No deceptive-agreement, missed-lesion, over-calling or fat-water '
+        "swap alert was raised with the settings in force.</div>"
+    ]
     parts.append(
-        "<p>Intervals are 95% subject cluster bootstrap percentile intervals unless the tables "
-        "say otherwise (see Methods).</p>"
-        if analysis.options.confidence_level == 0.95
-        else f"<p>Intervals are {percent_level(analysis.options.confidence_level)} subject cluster "
-        "bootstrap percentile intervals unless the tables say otherwise.</p>"
+        table(
+            overview_table(analysis),
+            caption="Each test method against the reference (verdicts against the criteria "
+            "set in advance, where declared)",
+            css_class="data overview",
+        )
     )
-    return "\n".join(parts)
+    parts.append(f'<p class="note">{interval_note(analysis)}</p>')
+    parts.append(_figures(figures, "overview"))
+    parts.append("<h3>Key results</h3>" + bullet_list(key_results(analysis)))
+    return "\n".join(p for p in parts if p)
 
 
 def _study_section(analysis: Analysis) -> str:
@@ -482,7 +459,7 @@ def render_report(
     """The complete report page as a string."""
     title = analysis.study.settings.title
     sections = [
-        ("key-results", "Key results", _key_results(analysis)),
+        ("overview", "Which method is good enough?", _overview(analysis, figures)),
         ("study", "Study", _study_section(analysis)),
         ("agreement", "Agreement between methods", _agreement_section(analysis, figures)),
         (

@@ -1,0 +1,92 @@
+"""The methods text on several test methods: acceptance criteria, verdicts, alerts and the
+head-to-head comparison, each rule as the code applies it (:mod:`cohort.analysis.verdicts`,
+:mod:`cohort.analysis.alerts`, :mod:`cohort.analysis.lesion_alerts`)."""
+
+from __future__ import annotations
+
+from cohort.analysis.alerts import DEFAULT_MIN_BIAS_DIFFERENCE
+from cohort.analysis.lesion_alerts import MIN_TEST_POSITIVE
+from cohort.analysis.pipeline import Analysis
+from cohort.domain.acceptance import (
+    DEFAULT_MIN_PPV,
+    DEFAULT_MIN_SENSITIVITY,
+    VERDICT_RULES,
+)
+from cohort.domain.units import PARAMETERS
+
+REFERENCES: dict[str, str] = {
+    "stockl2004": "Stöckl D, Rodríguez Cabaleiro D, Van Uytfanghe K, Thienpont LM. "
+    "Interpreting method comparison studies by use of the Bland-Altman plot: reflecting the "
+    "importance of sample size by incorporating confidence limits and predefined error "
+    "limits in the graphic. Clin Chem 2004;50:2216-2218.",
+}
+"""References cited only by these paragraphs (appended to the methods text's list)."""
+
+
+def difference_unit(parameter: str) -> str:
+    """The unit of a difference of ``parameter`` (fat fraction: percentage points)."""
+    unit = PARAMETERS[parameter].unit
+    return "percentage points" if unit == "%" else unit
+
+
+def _criteria(analysis: Analysis) -> list[str]:
+    a = analysis.study.settings.acceptance
+    items = [
+        f"both limits of agreement of {PARAMETERS[p].label} within ±{v:g} {difference_unit(p)}"
+        for p, v in a.limits.items()
+    ]
+    items += [f"Lin's CCC of {PARAMETERS[p].label} at least {v:g}" for p, v in a.ccc.items()]
+    items += [f"segment-level sensitivity for {f} at least {v:g}" for f, v in a.findings.items()]
+    return items
+
+
+def acceptance_lines(analysis: Analysis) -> list[str]:
+    """The paragraph on acceptance criteria and verdicts (empty without criteria)."""
+    if "method_verdicts" not in analysis.tables:
+        return []
+    rules = "; ".join(f"*{word}*: {text}" for word, text in VERDICT_RULES.items())
+    return [
+        "",
+        "## Acceptance criteria",
+        "Acceptance criteria were set before the analysis [bland1999]: "
+        + "; ".join(_criteria(analysis))
+        + ". Each test method received a verdict per criterion from the estimate and its "
+        "confidence interval (the subject cluster bootstrap interval where it was computed, "
+        "otherwise the analytic or Wilson interval, as the verdicts table states per row); for "
+        "limits of agreement the outer confidence bounds of both limits were compared with the "
+        f"acceptable difference [stockl2004]. Verdicts: {rules}.",
+    ]
+
+
+def alert_lines(analysis: Analysis) -> list[str]:
+    """The alert rules, exactly as applied (thresholds and floors included)."""
+    o = analysis.options
+    a = analysis.study.settings.acceptance
+    declared = ", ".join(f"{f}: {v:g}" for f, v in a.findings.items())
+    others = [d.name for d in analysis.study.settings.findings if d.name not in a.findings]
+    otherwise = f"; {', '.join(others)}: {DEFAULT_MIN_SENSITIVITY:g}" if others else ""
+    criterion = (
+        f"the sensitivity criterion declared for the finding ({declared}{otherwise})"
+        if a.findings
+        else f"{DEFAULT_MIN_SENSITIVITY:g}"
+    )
+    floors = ", ".join(
+        f"{PARAMETERS[p].label} {v:g} {difference_unit(p)}"
+        for p, v in DEFAULT_MIN_BIAS_DIFFERENCE.items()
+    )
+    return [
+        "",
+        "## Alerts",
+        "Every test method was screened for lesions it misses, whatever its overall "
+        "agreement. A missed-lesion alert was raised when its segment-level sensitivity for a "
+        f"finding was below {criterion}. A bias-shift alert was raised when the bias in "
+        "segments the reference called positive (b+) differed from the bias in the other "
+        f"segments (b-) by |b+ - b-| >= max(floor, ({o.bias_ratio:g} - 1) |b-|), with floors "
+        f"of {floors} (one tenth of the default thresholds at 1.5 T; a convention of this "
+        "analysis). Where the concordance correlation of the method was at least "
+        f"{o.ccc_min:g}, a sensitivity below {o.sensitivity_max:g} or such a bias shift was "
+        "reported instead as deceptive agreement (good overall agreement that hides missed "
+        "lesions). An over-calling alert was raised when the positive predictive value was "
+        f"below {DEFAULT_MIN_PPV:g}, judged only where the method called at least "
+        f"{MIN_TEST_POSITIVE} segments positive.",
+    ]
