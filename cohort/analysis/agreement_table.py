@@ -27,6 +27,7 @@ from cohort.analysis.agreement_columns import (
 from cohort.domain.options import DEFAULT_N_BOOT, DEFAULT_SEED, PB_MAX_PAIRS, STRATA
 from cohort.domain.segments import RINGS, TERRITORIES
 from cohort.domain.units import PARAMETERS
+from cohort.io.method_order import levels
 from cohort.parallel import ordered_map
 from cohort.stats.agreement import (
     PROPORTIONAL,
@@ -407,9 +408,10 @@ def _jobs(
     reference_all = paired["reference"].astype(str).to_numpy()
     keys = paired[["parameter", "method"]].astype(str)
     combos = keys.groupby(["parameter", "method"], sort=True).indices
+    method_levels = [str(m) for m in levels(paired["method"])]  # the study's order
     jobs = []
     for parameter in _ordered({p for p, _ in combos}, tuple(PARAMETERS)):
-        for method in sorted(m for p, m in combos if p == parameter):
+        for method in [m for m in method_levels if (parameter, m) in combos]:
             positions = combos[(parameter, method)]
             identity = {
                 "parameter": parameter,

@@ -40,6 +40,7 @@ from numpy.typing import ArrayLike
 from cohort.analysis.findings import SEGMENT_COLUMNS, FindingsResult, summarise
 from cohort.domain.options import DEFAULT_N_BOOT, DEFAULT_SEED
 from cohort.domain.segments import SEGMENTS
+from cohort.io.method_order import levels
 from cohort.stats.bootstrap import (
     bootstrap_method,
     check_options,
@@ -347,7 +348,7 @@ def _test_methods(
     findings: FindingsResult, reference: str, methods: Sequence[str] | None
 ) -> list[str]:
     """The test methods to compare with ``reference`` (default: every other method)."""
-    present = list(pd.unique(findings.segments["method"]))
+    present = [str(m) for m in levels(findings.segments["method"])]
     if reference not in present:
         raise ValueError(f"reference must be a method of the findings {present}, got {reference!r}")
     tests = [m for m in present if m != reference] if methods is None else list(methods)

@@ -34,6 +34,7 @@ from cohort.analysis.group_tables import (
     require_columns,
 )
 from cohort.domain.units import PARAMETERS
+from cohort.io.method_order import levels
 from cohort.parallel import map_shared
 from cohort.stats.group_samples import check_confidence_level
 from cohort.stats.models import (
@@ -132,6 +133,8 @@ def largest_fit(frame: pd.DataFrame, keys: Sequence[str]) -> int:
 def _cells(frame: pd.DataFrame, columns: Sequence[str]) -> list[tuple]:
     keys = frame[list(columns)].drop_duplicates()
     rank = {p: i for i, p in enumerate(PARAMETERS)}
+    if "method" in frame.columns:  # the study's method order
+        rank |= {m: i for i, m in enumerate(levels(frame["method"]))}
     return sorted(
         (tuple(k) for k in keys.itertuples(index=False)),
         key=lambda k: tuple((rank.get(v, len(rank)), str(v)) for v in k),

@@ -23,6 +23,7 @@ from cohort.analysis.group_tables import (
 )
 from cohort.domain.segments import SEGMENTS, TERRITORIES
 from cohort.domain.units import PARAMETERS
+from cohort.io.method_order import levels
 from cohort.stats.results import warn_not_estimable
 
 MEAN, MAX, CULPRIT_MEAN = "mean", "max", "culprit_mean"
@@ -169,10 +170,14 @@ def summary_keys(frame: pd.DataFrame) -> list[tuple[str, str, str]]:
     keys = frame[["parameter", "method", "summary"]].drop_duplicates()
     rank = {p: i for i, p in enumerate(PARAMETERS)}
     srank = {s: i for i, s in enumerate(SUMMARY_KINDS)}
+    mrank = {m: i for i, m in enumerate(levels(frame["method"]))}  # the study's method order
     return sorted(
         (tuple(k) for k in keys.itertuples(index=False)),
-        key=lambda k: (rank.get(k[0], len(rank)), k[0], k[1], srank.get(k[2], len(srank)), k[2]),
-    )
+        key=lambda k: (
+            rank.get(k[0], len(rank)), k[0], mrank.get(k[1], 0), k[1],
+            srank.get(k[2], len(srank)), k[2],
+        ),
+    )  # fmt: skip
 
 
 def values_by_group(part: pd.DataFrame, order: Sequence[str]) -> dict[str, np.ndarray]:

@@ -27,6 +27,7 @@ import numpy as np
 import pandas as pd
 
 from cohort.domain.thresholds import DEFAULT_SWAP_MARGIN_PP, MAGNITUDE_ONLY_FF_LIMIT, SwapOptions
+from cohort.io.method_order import levels
 
 REASONS: tuple[str, ...] = ("not-comparable", "above-magnitude-limit", "swap-suspect")
 
@@ -86,7 +87,7 @@ def _check_screen_options(
     missing = [c for c in need if c not in paired]
     if missing:
         raise ValueError(f"paired is missing columns {missing}")
-    methods = list(pd.unique(paired["method"]))
+    methods = [str(m) for m in levels(paired["method"])]
     unknown = [m for m in magnitude_only_methods if m not in methods]
     if unknown:
         raise ValueError(
@@ -162,7 +163,7 @@ def swap_screen(
     flags["distance_to_swapped"] = d_swap[hit]
     flags["reason"] = reason[hit]
     flags = flags.reindex(columns=list(FLAG_COLUMNS)).reset_index(drop=True)
-    counts = _counts(ff, list(pd.unique(paired["method"])), reason, magnitude_only_methods)
+    counts = _counts(ff, [str(m) for m in levels(paired["method"])], reason, magnitude_only_methods)
     return SwapScreen(flags, counts, float(margin), tuple(magnitude_only_methods), magnitude_limit)
 
 

@@ -92,3 +92,20 @@ def ordered_methods(frame: pd.DataFrame, order: tuple, column: str = "method") -
     if column in frame.columns:
         kept = [m for m in order if m in set(frame[column].astype(str))]
         frame[column] = pd.Categorical(frame[column].astype(str), categories=kept)
+
+
+def levels(column: pd.Series) -> list:
+    """The values of ``column`` in the study's order: a categorical's categories that occur
+    (the study's method order, :func:`ordered_methods`), else the order of first appearance.
+
+    Examples
+    --------
+    >>> levels(pd.Series(pd.Categorical(["b", "a", "b"], categories=["b", "c", "a"])))
+    ['b', 'a']
+    >>> levels(pd.Series(["z", "a", "z"]))
+    ['z', 'a']
+    """
+    if isinstance(column.dtype, pd.CategoricalDtype):
+        present = set(column.dropna().unique())
+        return [c for c in column.cat.categories if c in present]
+    return list(pd.unique(column))

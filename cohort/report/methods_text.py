@@ -136,11 +136,14 @@ def _data_paragraph(analysis: Analysis) -> str:
     model = segment_model(s.segment_model)
     params = [PARAMETERS[p].description + f" ({PARAMETERS[p].unit})" for p in study.parameters]
     n_subj = len(study.subjects)
+    groups = study.groups
     return (
         f"Per-segment values of {_join(params)} were analysed in {n_subj} subjects "
-        f"({_join(f'{g}: {(study.subjects.group == g).sum()}' for g in study.groups)}) using the "
+        f"({_join(f'{study.group_label(g)}: {(study.subjects.group == g).sum()}' for g in groups)})"
+        " "
+        "using the "
         f"AHA {len(model.numbers)}-segment model [cerqueira2002]. The method "
-        f"'{study.reference}' served as reference; "
+        f"{_method_name(study, study.reference)} served as reference; "
         f"{_join(_method_name(study, m) for m in study.test_methods)} "
         f"{'was' if len(study.test_methods) == 1 else 'were'} "
         "compared with it on the segments where both methods had a value. "

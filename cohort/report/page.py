@@ -86,6 +86,21 @@ def _figures(records: Sequence[Any], section_name: str, parameter: str | None = 
     return "\n".join(parts)
 
 
+def _labelled(study: Any, frame: pd.DataFrame) -> pd.DataFrame:
+    """``frame`` with methods and groups shown by their display labels (the CSV tables keep
+    the names of the input, for joining)."""
+    frame = frame.copy()
+    for column, label in (("method", study.method_label), ("reference", study.method_label),
+                          ("group", study.group_label)):  # fmt: skip
+        if column in frame.columns:
+            frame[column] = frame[column].map(lambda v, f=label: v if v != v else f(v))
+    return frame
+
+
+def _table(analysis: Analysis, frame: pd.DataFrame, **options: Any) -> str:
+    return table(_labelled(analysis.study, frame), **options)
+
+
 def _overview(analysis: Analysis, figures: Sequence[Any]) -> str:
     """Alerts first, then the overview table and figure, then the key results."""
     parts = [
@@ -161,7 +176,8 @@ def _agreement_section(analysis: Analysis, figures: Sequence[Any]) -> str:
         parts.append(f"<h3>{esc(p.label[0].upper() + p.label[1:])} ({esc(p.unit)})</h3>")
         for method, part in rows.groupby("method", sort=False):
             parts.append(
-                table(
+                _table(
+                    analysis,
                     part,
                     columns=AGREEMENT_VIEW,
                     caption=f"{p.label}: {method} vs {analysis.study.reference}",
@@ -172,7 +188,8 @@ def _agreement_section(analysis: Analysis, figures: Sequence[Any]) -> str:
                 for column in ("ratio_bias", "ratio_loa_low", "ratio_loa_high"):
                     ratio[f"{column}_ci"] = with_ci(ratio, column)
                 parts.append(
-                    table(
+                    _table(
+                        analysis,
                         ratio,
                         columns={
                             "stratum": "stratum",
@@ -213,7 +230,8 @@ def _findings_section(analysis: Analysis, figures: Sequence[Any]) -> str:
     parts = [
         "<p><strong>Thresholds in force.</strong> Each needs validation for the local protocol, "
         "scanner and population before its results are interpreted.</p>",
-        table(
+        _table(
+            analysis,
             analysis.tables["thresholds"],
             columns={
                 "finding": "finding",
@@ -225,12 +243,16 @@ def _findings_section(analysis: Analysis, figures: Sequence[Any]) -> str:
             },
             caption="Thresholds",
         ),
-        table(
-            detection, columns=FINDINGS_VIEW, caption="Finding-level agreement with the reference"
+        _table(
+            analysis,
+            detection,
+            columns=FINDINGS_VIEW,
+            caption="Finding-level agreement with the reference",
         ),
         f"<h3>Missed and extra findings ({int((missed['kind'] == 'missed').sum())} missed, "
         f"{int((missed['kind'] == 'extra').sum())} extra)</h3>",
-        table(
+        _table(
+            analysis,
             missed,
             columns={
                 "kind": "kind",
@@ -332,7 +354,8 @@ def _groups_section(analysis: Analysis, figures: Sequence[Any]) -> str:
     ]
     if "group_descriptives" in t:
         parts.append(
-            table(
+            _table(
+                analysis,
                 _descriptives_view(t["group_descriptives"], analysis.study.groups),
                 caption="Per-subject summaries by group: median [Q1, Q3] (n subjects)",
             )
@@ -350,7 +373,8 @@ def _groups_section(analysis: Analysis, figures: Sequence[Any]) -> str:
             )
         ]
         parts.append(
-            table(
+            _table(
+                analysis,
                 _p_text(comp),
                 columns=COMPARISON_VIEW,
                 caption="Group comparisons (raw and adjusted p-values)",
@@ -360,7 +384,8 @@ def _groups_section(analysis: Analysis, figures: Sequence[Any]) -> str:
         prop = t["finding_proportions"].copy()
         prop["proportion_ci"] = with_ci(prop, "proportion", bounds=("ci_low", "ci_high"))
         parts.append(
-            table(
+            _table(
+                analysis,
                 prop,
                 columns={
                     "finding": "finding",
@@ -375,7 +400,8 @@ def _groups_section(analysis: Analysis, figures: Sequence[Any]) -> str:
         )
     if "finding_group_tests" in t and len(t["finding_group_tests"]):
         parts.append(
-            table(
+            _table(
+                analysis,
                 _p_text(t["finding_group_tests"]),
                 columns={
                     "finding": "finding",
@@ -395,7 +421,12 @@ def _groups_section(analysis: Analysis, figures: Sequence[Any]) -> str:
         models["estimate_ci"] = with_ci(models, "estimate", bounds=("ci_low", "ci_high"))
         models = _p_text(models)
         parts.append(
-            table(models, columns=MODEL_VIEW, caption="Segment-level models respecting clustering")
+            _table(
+                analysis,
+                models,
+                columns=MODEL_VIEW,
+                caption="Segment-level models respecting clustering",
+            )
         )
     parts.append(_figures(figures, "groups"))
     return "\n".join(parts)
@@ -406,18 +437,20 @@ def _quality_section(analysis: Analysis) -> str:
     excl = t["exclusions"]
     reasons = excl.groupby(["status", "reason"]).size().rename("values").reset_index()
     parts = [
-        table(reasons, caption="Input values not used, by reason")
+        _table(analysis, reasons, caption="Input values not used, by reason")
         if len(reasons)
         else "<p>Every input value was used.</p>",
-        table(
-            t["missing_values"], caption="Missing (blank) values per method, parameter and segment"
+        _table(
+            analysis,
+            t["missing_values"],
+            caption="Missing (blank) values per method, parameter and segment",
         )
         if len(t["missing_values"])
         else "<p>No missing values.</p>",
-        table(t["swap_screen"], caption="Fat-water swap screen (fat fraction pairs)"),
+        _table(analysis, t["swap_screen"], caption="Fat-water swap screen (fat fraction pairs)"),
     ]
     if len(t["input_warnings"]):
-        parts.append(table(t["input_warnings"], caption="Input warnings"))
+        parts.append(_table(analysis, t["input_warnings"], caption="Input warnings"))
     if analysis.warnings:
         parts.append("<h3>Not estimable and other analysis notes</h3>")
         parts.append(bullet_list(analysis.warnings[:200]))
