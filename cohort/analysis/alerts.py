@@ -87,10 +87,15 @@ def _low_sensitivity(
     p, m, f, sens = row.parameter, row.method, row.finding, float(row.sensitivity)
     if not (math.isfinite(sens) and sens < rule.sensitivity_max):
         return []
+    counts = ""
+    if hasattr(row, "tp") and hasattr(row, "fn"):
+        counts = f"{int(row.tp)} of {int(row.tp) + int(row.fn)} {rule.level}s, "
     message = (
-        f"{rule.label(m)} against the reference, {p}: overall CCC {ccc:.3f} >= {rule.ccc_min:g}, "
-        f"but {rule.level}-level sensitivity for finding {f!r} is {sens:.3f} "
-        f"< {rule.sensitivity_max:g}"
+        f"Deceptive agreement: {rule.label(m)} agrees well with the reference on {p} overall "
+        f"(CCC {ccc:.3f}, at least {rule.ccc_min:g}) but shows only {counts}"
+        f"{100 * sens:.0f} % (sensitivity {sens:.3f}, below {rule.sensitivity_max:g}) of the "
+        f"{rule.level}s that the reference shows as positive for {f!r}; see "
+        "tables/missed_findings.csv"
     )
     return [AgreementWarning("low-sensitivity", p, m, f, ccc, sens, *biases, message)]
 
@@ -107,9 +112,11 @@ def _bias_shift(
     if shift < limit:
         return []
     message = (
-        f"{rule.label(m)}, {p}: overall CCC {ccc:.3f} >= {rule.ccc_min:g}, but the bias in "
-        f"segments the reference calls {f!r} positive is {b_pos:.4g} against "
-        f"{b_neg:.4g} in negative ones (shift {shift:.4g} >= {limit:.4g})"
+        f"Deceptive agreement: {rule.label(m)} agrees well with the reference on {p} overall "
+        f"(CCC {ccc:.3f}, at least {rule.ccc_min:g}) but reads lesions differently: in "
+        f"segments the reference shows as positive for {f!r} the bias is {b_pos:.4g}, "
+        f"against {b_neg:.4g} in the other segments (a shift of {shift:.4g}, at least "
+        f"{limit:.4g})"
     )
     return [AgreementWarning("bias-shift", p, m, f, ccc, sens, b_pos, b_neg, message)]
 

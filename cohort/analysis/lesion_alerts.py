@@ -109,9 +109,9 @@ def missed_lesion_alerts(
     >>> alert, = missed_lesion_alerts(detection, segments, Acceptance(), reference="ref",
     ...                               methods=["fast"])
     >>> print(alert.message)  # doctest: +ELLIPSIS
-    fast shows 3 of 10 segments that the reference shows as positive for hemorrhage (30 %, 95 %
-    CI 10 to 60 %, Wilson score), below the 80 % it should reach; it misses at least one in 1 of
-    1 subjects with such segments
+    Missed lesions: fast shows 3 of 10 segments that the reference shows as positive for
+    hemorrhage (30 %, 95 % CI 10 to 60 %, Wilson score), below the 80 % it should reach; it
+    misses at least one in 1 of 1 subjects with such segments
     """
     names = dict(finding_labels or {})
     rows = detection[detection["level"].eq("segment") & detection["stratum"].eq("all")]
@@ -132,7 +132,8 @@ def _missed(row, method, finding, what, acceptance, segments, reference, label):
     tp, fn = int(row["tp"]), int(row["fn"])
     with_missed, with_any = _subjects_missed(segments, reference, method, finding)
     message = (
-        f"{label(method)} shows {tp} of {tp + fn} segments that the reference shows as "
+        f"Missed lesions: {label(method)} shows {tp} of {tp + fn} segments that the reference "
+        "shows as "
         f"positive for {what} ({_percent(sens)}, {_interval_text(row, 'sensitivity')}), "
         f"below the {_percent(criterion)} it should reach; it misses at least one in "
         f"{with_missed} of {with_any} subjects with such segments"
@@ -148,7 +149,7 @@ def _over_called(row, method, finding, what, label):
     if not (math.isfinite(ppv) and ppv < DEFAULT_MIN_PPV and tp + fp >= MIN_TEST_POSITIVE):
         return []
     message = (
-        f"{label(method)} calls {tp + fp} segments positive for {what}, of which the "
+        f"Over-calling: {label(method)} calls {tp + fp} segments positive for {what}, of which the "
         f"reference shows {tp} ({_percent(ppv)} positive predictive value, "
         f"{_interval_text(row, 'ppv')}): {fp} segments are called positive that the "
         "reference shows as negative"
@@ -201,7 +202,8 @@ def bias_shift_alerts(
             if shift < limit:
                 continue
             message = (
-                f"{label(method)}, {p}: in segments the reference shows as positive for "
+                f"Bias shift in lesions: {label(method)}, {p}: in segments the reference shows "
+                "as positive for "
                 f"{names.get(f, f)} the bias is {b_pos:.3g}, against {b_neg:.3g} in the "
                 f"other segments (a shift of {shift:.3g}, at least {limit:.3g}): the "
                 "method reads lesions differently from healthy myocardium"
