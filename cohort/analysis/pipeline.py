@@ -32,6 +32,7 @@ from cohort.analysis.lesion_alerts import (
     missed_lesion_alerts,
     without_stronger,
 )
+from cohort.analysis.method_differences import method_differences
 from cohort.analysis.swaps import SwapScreen, swap_screen_with
 from cohort.analysis.verdicts import method_verdicts
 from cohort.domain.options import RunOptions, override_options
@@ -45,6 +46,8 @@ Progress = Callable[[str], None]
 TABLES: Mapping[str, str] = MappingProxyType(
     {
         "method_verdicts": "each test method against the acceptance criteria set in advance",
+        "method_differences": "test methods head to head: differences in agreement and "
+        "sensitivity with the same reference",
         "agreement": "every agreement statistic per parameter, method and stratum",
         "thresholds": "the finding thresholds in force, with their sources",
         "findings_segment": "each segment classified per method and finding",
@@ -63,7 +66,8 @@ TABLES: Mapping[str, str] = MappingProxyType(
     }
 )
 """The tables an :class:`Analysis` names (and the output folder's ``tables/`` holds), in
-order (``method_verdicts`` only when the study declares acceptance criteria); the group
+order (``method_verdicts`` only when the study declares acceptance criteria,
+``method_differences`` only with two or more test methods); the group
 comparison's tables (``group_comparison``, ``group_descriptives``, ...; see
 :meth:`cohort.analysis.group_comparison.GroupComparison.tables`) follow ``swap_flags``."""
 
@@ -203,6 +207,11 @@ def analyse(
     )
     tables = {
         **_verdicts(study, agreement, detection),
+        **step(
+            "method_differences",
+            f"test methods head to head (B = {options.n_boot})",
+            lambda: _differences(study, findings, options),
+        ),
         "agreement": agreement,
         "thresholds": thresholds_table(definitions),
         "findings_segment": findings.segments,
@@ -277,6 +286,26 @@ def _verdicts(
     return {
         "method_verdicts": method_verdicts(agreement, detection, acceptance, study.test_methods)
     }
+
+
+def _differences(
+    study: Study, findings: FindingsResult, options: RunOptions
+) -> dict[str, pd.DataFrame]:
+    """The ``method_differences`` table, with two or more test methods."""
+    if len(study.test_methods) < 2:
+        return {}
+    table = method_differences(
+        study.paired,
+        findings.segments,
+        study.reference,
+        study.test_methods,
+        baseline=study.settings.acceptance.baseline,
+        n_boot=options.n_boot,
+        seed=options.seed,
+        confidence_level=options.confidence_level,
+        correction=options.correction,
+    )
+    return {"method_differences": table}
 
 
 def _alerts(

@@ -19,6 +19,10 @@ REFERENCES: dict[str, str] = {
     "Interpreting method comparison studies by use of the Bland-Altman plot: reflecting the "
     "importance of sample size by incorporating confidence limits and predefined error "
     "limits in the graphic. Clin Chem 2004;50:2216-2218.",
+    "obuchowski1998": "Obuchowski NA. On the comparison of correlated proportions for "
+    "clustered data. Stat Med 1998;17:1495-1507.",
+    "davison1997": "Davison AC, Hinkley DV. Bootstrap methods and their application. "
+    "Cambridge: Cambridge University Press; 1997.",
 }
 """References cited only by these paragraphs (appended to the methods text's list)."""
 
@@ -89,4 +93,47 @@ def alert_lines(analysis: Analysis) -> list[str]:
         "lesions). An over-calling alert was raised when the positive predictive value was "
         f"below {DEFAULT_MIN_PPV:g}, judged only where the method called at least "
         f"{MIN_TEST_POSITIVE} segments positive.",
+    ]
+
+
+def difference_lines(analysis: Analysis) -> list[str]:
+    """The head-to-head comparison of test methods (with two or more of them)."""
+    table = analysis.tables.get("method_differences")
+    if table is None:
+        return []
+    o = analysis.options
+    baseline = analysis.study.settings.acceptance.baseline
+    pairs = (
+        f"each other test method was compared with {analysis.study.method_label(baseline)}"
+        if baseline
+        else "every pair of test methods was compared"
+    )
+    correction = {"holm": "Holm's procedure [holm1979]", "fdr_bh": "the Benjamini-Hochberg "
+                  "procedure [bh1995]"}[o.correction]  # fmt: skip
+    intervals = (
+        f"subject cluster bootstrap percentile intervals (B = {o.n_boot}, seed {o.seed}) with "
+        "both methods evaluated on the same resampled subjects in every resample"
+        if o.n_boot
+        else "not computed, since no bootstrap ran (B = 0)"
+    )
+    bootstrap_test = (
+        "differences in agreement statistics were tested with a two-sided bootstrap test "
+        "from the same resamples, p = min(1, 2 (1 + r) / (B + 1)) with r the smaller of the "
+        "numbers of resampled differences at or below and at or above zero [davison1997]"
+        if o.n_boot
+        else "differences in agreement statistics were not tested (no bootstrap)"
+    )
+    return [
+        "",
+        "## Test methods head to head",
+        f"Against the same reference, {pairs}: per parameter the difference (first minus "
+        "second method) in absolute bias, in the width of the limits of agreement and in "
+        "Lin's CCC; per finding the difference in segment-level sensitivity and specificity, "
+        "on the segments classified by the reference and both methods. Confidence intervals "
+        f"of the differences are {intervals}. Differences in sensitivity (on "
+        "reference-positive segments) and specificity (on reference-negative segments) were "
+        "tested with Obuchowski's test for correlated proportions of clustered data "
+        "[obuchowski1998], the exact McNemar test ignoring the clustering reported beside "
+        f"it; {bootstrap_test}. P-values were adjusted with {correction} over all "
+        "comparisons of the table as one family.",
     ]

@@ -15,7 +15,7 @@ from cohort.domain.segments import segment_model
 from cohort.domain.units import PARAMETERS
 from cohort.domain.wording import percent_level
 from cohort.report.methods_acceptance import REFERENCES as ACCEPTANCE_REFERENCES
-from cohort.report.methods_acceptance import acceptance_lines, alert_lines
+from cohort.report.methods_acceptance import acceptance_lines, alert_lines, difference_lines
 from cohort.stats.regression import PB_WEIGHTED_MAX_N
 
 REFERENCES: dict[str, str] = {
@@ -116,6 +116,7 @@ def methods_markdown(analysis: Analysis) -> str:
         *_findings_lines(analysis),
         *alert_lines(analysis),
         *acceptance_lines(analysis),
+        *difference_lines(analysis),
         *_groups_lines(analysis),
         "",
         "## Reporting",

@@ -345,6 +345,26 @@ MODEL_VIEW = {
 }
 
 
+PROPORTION_VIEW = {
+    "finding": "finding",
+    "method": "method",
+    "group": "group",
+    "n_subjects": "subjects",
+    "n_positive": "positive",
+    "proportion_ci": "proportion (95% CI)",
+}
+FINDING_TEST_VIEW = {
+    "finding": "finding",
+    "method": "method",
+    "test": "test",
+    "comparison": "comparison",
+    "p_value": "p",
+    "p_method": "p-value method",
+    "p_adjusted": "p adjusted",
+    "note": "note",
+}
+
+
 def _groups_section(analysis: Analysis, figures: Sequence[Any]) -> str:
     t = analysis.tables
     parts = [
@@ -387,14 +407,7 @@ def _groups_section(analysis: Analysis, figures: Sequence[Any]) -> str:
             _table(
                 analysis,
                 prop,
-                columns={
-                    "finding": "finding",
-                    "method": "method",
-                    "group": "group",
-                    "n_subjects": "subjects",
-                    "n_positive": "positive",
-                    "proportion_ci": "proportion (95% CI)",
-                },
+                columns=PROPORTION_VIEW,
                 caption="Subjects positive for each finding, by group",
             )
         )
@@ -403,16 +416,7 @@ def _groups_section(analysis: Analysis, figures: Sequence[Any]) -> str:
             _table(
                 analysis,
                 _p_text(t["finding_group_tests"]),
-                columns={
-                    "finding": "finding",
-                    "method": "method",
-                    "test": "test",
-                    "comparison": "comparison",
-                    "p_value": "p",
-                    "p_method": "p-value method",
-                    "p_adjusted": "p adjusted",
-                    "note": "note",
-                },
+                columns=FINDING_TEST_VIEW,
                 caption="Proportions of positive subjects between groups (Fisher)",
             )
         )

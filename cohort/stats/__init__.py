@@ -20,8 +20,9 @@ Method-comparison regression
     :func:`passing_bablok`, :func:`deming`; result :class:`MethodRegression`
 Proportions and classification (2x2 tables)
     :func:`wilson_interval`, :func:`proportion`, :func:`cohen_kappa`, :func:`mcnemar_test`,
-    :func:`diagnostic_accuracy`; results :class:`Proportion`, :class:`Kappa`,
-    :class:`McNemar`, :class:`DiagnosticAccuracy`
+    :func:`diagnostic_accuracy`, :func:`clustered_paired_proportions` (two methods' paired
+    proportions with units clustered in subjects); results :class:`Proportion`,
+    :class:`Kappa`, :class:`McNemar`, :class:`DiagnosticAccuracy`, :class:`PairedProportions`
 Groups (independent samples of subjects)
     :func:`kruskal_wallis`, :func:`mann_whitney`, :func:`welch_anova`, :func:`games_howell`,
     :func:`hedges_g`, :func:`cliffs_delta`, :func:`risk_difference`,
@@ -80,6 +81,7 @@ from cohort.stats.group_tests import (
 )
 from cohort.stats.models import GroupModelFit, choose_model_path, fit_group_model
 from cohort.stats.multiplicity import adjust_p, adjust_within_families, benjamini_hochberg, holm
+from cohort.stats.paired_proportions import PairedProportions, clustered_paired_proportions
 from cohort.stats.proportion_tests import fisher_exact_2x2, freeman_halton, risk_difference
 from cohort.stats.proportions import wilson_interval
 from cohort.stats.regression import MethodRegression, deming, passing_bablok
@@ -112,6 +114,7 @@ __all__ = [
     "MethodRegression",
     "NotEstimableWarning",
     "PairTest",
+    "PairedProportions",
     "Proportion",
     "ProportionalBias",
     "RegressionLimits",
@@ -122,6 +125,7 @@ __all__ = [
     "bias",
     "choose_model_path",
     "cliffs_delta",
+    "clustered_paired_proportions",
     "cohen_kappa",
     "concordance_correlation",
     "deming",
