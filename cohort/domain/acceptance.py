@@ -128,8 +128,9 @@ def verdict(estimate: float, low: float, high: float, criterion: float, *, upper
         return INCONCLUSIVE
     if (estimate > criterion) if upper else (estimate < criterion):
         return FAILS
-    bound = high if upper else low
-    if bound != bound:
+    finite = all(abs(b) < float("inf") for b in (low, high))  # False for NaN too
+    if not finite:
         return INCONCLUSIVE
+    bound = high if upper else low
     ok = bound <= criterion if upper else bound >= criterion
     return MEETS if ok else INCONCLUSIVE

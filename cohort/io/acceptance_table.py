@@ -69,10 +69,14 @@ def _entry_problems(
         where = f"[acceptance.{sub}] {name}"
         if name not in known:
             noun = "finding" if sub == "findings" else "parameter"
+            hint = did_you_mean(name, known)
+            if noun == "parameter" and name.strip().lower() in ("r2*", "t2*", "t2star"):
+                # how papers write it; T2* criteria are given as R2* (the report's unit)
+                hint = "; did you mean 'r2star'? (criteria are in the report's unit, 1/s)"
             problems.append(
                 study_problem(
                     file,
-                    f"{where}: unknown {noun}{did_you_mean(name, known)}",
+                    f"{where}: unknown {noun}{hint}",
                     name,
                     f"one of {known}",
                 )

@@ -45,7 +45,9 @@ def rows(ccc, b_pos, b_neg):
 
 def test_high_ccc_with_low_sensitivity_warns(detection):
     # planted cohort: sensitivity 4/7 = 0.571 < 0.8 at segment level
-    with pytest.warns(DeceptiveAgreementWarning, match=r"CCC 0.950, at least 0.9.*sensitivity 0.571, below 0.8"):
+    with pytest.warns(
+        DeceptiveAgreementWarning, match=r"CCC 0.950, at least 0.9.*sensitivity 0.571, below 0.8"
+    ):
         found = deceptive_agreement(rows(0.95, 0.2, 0.1), detection)
     assert [(w.kind, w.parameter, w.method, w.finding) for w in found] == [
         ("low-sensitivity", "r2star", "fast", "hemorrhage")
