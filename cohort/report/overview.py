@@ -162,3 +162,27 @@ def interval_note(analysis: Analysis) -> str:
         f"In brackets: {label}s, {how}; for limits of agreement, the outer bounds (lower bound "
         "of the lower limit to upper bound of the upper limit) that the verdicts use."
     )
+
+
+def differences_view(analysis: Analysis) -> pd.DataFrame | None:
+    """The head-to-head table as the report shows it: methods by label, the difference with
+    its interval, the adjusted p-value (None with fewer than two test methods)."""
+    table = analysis.tables.get("method_differences")
+    if table is None or table.empty:
+        return None
+    label = analysis.study.method_label
+    rows = []
+    for r in table.itertuples(index=False):
+        rows.append(
+            {
+                "comparison": f"{label(r.method_a)} minus {label(r.method_b)}",
+                "target": r.target,
+                "statistic": str(r.statistic).replace("_", " "),
+                "estimates": f"{fmt(r.estimate_a)} vs {fmt(r.estimate_b)}",
+                "difference": f"{fmt(r.difference)} ({fmt(r.ci_low)} to {fmt(r.ci_high)})",
+                "better": r.better,
+                "p adjusted": fmt(r.p_adjusted),
+                "note": r.note if r.note == r.note else "",
+            }
+        )
+    return pd.DataFrame(rows)

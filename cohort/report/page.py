@@ -17,8 +17,9 @@ from cohort import __version__
 from cohort.analysis.pipeline import Analysis
 from cohort.domain.cautions import CAUTION_LONG
 from cohort.domain.units import PARAMETERS
+from cohort.domain.wording import interval_label
 from cohort.report.html import bullet_list, esc, figure, fmt, page, section, table
-from cohort.report.overview import interval_note, key_results, overview_table
+from cohort.report.overview import differences_view, interval_note, key_results, overview_table
 
 
 def with_ci(
@@ -84,6 +85,23 @@ def _figures(records: Sequence[Any], section_name: str, parameter: str | None = 
         if png is not None:
             parts.append(figure(png, f"{record.title}. {record.caption}"))
     return "\n".join(parts)
+
+
+def _head_to_head(analysis: Analysis) -> list[tuple[str, str, str]]:
+    """The section comparing test methods with each other (two or more test methods)."""
+    view = differences_view(analysis)
+    if view is None:
+        return []
+    level = interval_label(analysis.options.confidence_level)
+    body = (
+        f"<p>Differences between test methods against the same reference (first minus "
+        f"second; {level}s from the subject cluster bootstrap with the same resampled "
+        "subjects for both methods; p-values adjusted over the whole table, see Methods). "
+        "<code>better</code> says which direction favours the first method's agreement: "
+        "lower absolute bias and narrower limits, higher CCC, sensitivity and specificity."
+        "</p>" + table(view, caption="Test methods head to head")
+    )
+    return [("head-to-head", "Test methods head to head", body)]
 
 
 def _labelled(study: Any, frame: pd.DataFrame) -> pd.DataFrame:
@@ -497,6 +515,7 @@ def render_report(
     title = analysis.study.settings.title
     sections = [
         ("overview", "Which method is good enough?", _overview(analysis, figures)),
+        *_head_to_head(analysis),
         ("study", "Study", _study_section(analysis)),
         ("agreement", "Agreement between methods", _agreement_section(analysis, figures)),
         (
