@@ -44,6 +44,7 @@ from cohort.figures.agreement import _agreement_figures
 from cohort.figures.findings import _prevalence_figures
 from cohort.figures.groups import _group_figures, _paired_figures
 from cohort.figures.maps import _difference_figures, _median_figures
+from cohort.figures.overview import _overview_figures
 from cohort.figures.records import SECTIONS, FigureRecord, FigureSet, SkippedFigure, _Item
 from cohort.figures.subjects import MAX_SUBJECTS_SHOWN, _subject_figure
 from cohort.io.study import Study
@@ -119,8 +120,8 @@ def make_figures(
         raise ValueError(f"progress must be callable or None, got {progress!r}")
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)
-
     parts = (
+        (_overview_figures, (study, tables)),
         (_agreement_figures, (study, tables)),
         (_prevalence_figures, (study, tables)),
         (_subject_figure, (study, tables, subjects_to_show)),

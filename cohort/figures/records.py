@@ -15,7 +15,7 @@ from matplotlib.figure import Figure
 
 from cohort.plots.bullseye_grid import BullseyeGrid
 
-SECTIONS: tuple[str, ...] = ("agreement", "findings", "groups", "maps")
+SECTIONS: tuple[str, ...] = ("overview", "agreement", "findings", "groups", "maps")
 
 
 @dataclass(frozen=True)
