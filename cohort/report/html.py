@@ -80,9 +80,14 @@ def table(
 
 def figure(path: str | Path, caption: str, alt: str | None = None) -> str:
     """A PNG figure embedded as base64 with its caption."""
-    data = base64.b64encode(Path(path).read_bytes()).decode("ascii")
+    raw = Path(path).read_bytes()
+    data = base64.b64encode(raw).decode("ascii")
+    # a figure wider than a single journal column (about 1,100 px at 300 dpi: 90 mm) is
+    # a multi-panel figure: shown at the page's full width (PNG width: bytes 16-20, IHDR)
+    wide = raw[:8] == b"\x89PNG\r\n\x1a\n" and int.from_bytes(raw[16:20], "big") > 1400
+    cls = ' class="wide"' if wide else ""
     return (
-        f'<figure><img src="data:image/png;base64,{data}" alt="{esc(alt or caption)}">'
+        f'<figure{cls}><img src="data:image/png;base64,{data}" alt="{esc(alt or caption)}">'
         f"<figcaption>{esc(caption)}</figcaption></figure>"
     )
 
@@ -117,6 +122,8 @@ table.data th, table.data td { border-bottom: 1px solid var(--rule); padding: 3p
              text-align: left; white-space: nowrap; }
 table.data th { background: #f4f4f4; position: sticky; top: 0; }
 table.data td.num { text-align: right; font-variant-numeric: tabular-nums; }
+table.overview { display: table; width: 100%; table-layout: auto; }
+table.overview th, table.overview td { white-space: normal; vertical-align: top; }
 caption { text-align: left; font-weight: 600; padding: 4px 0; }
 figure { margin: 12px 0 20px; }
 figure img { max-width: min(100%, 760px); height: auto; border: 1px solid #eee; }

@@ -123,13 +123,25 @@ def _line(analysis: Analysis, method: str) -> str:
         return f"{label}: no acceptance criteria declared; {shown}."
     mine = verdicts[verdicts["method"].astype(str).eq(method)]
     word = overall_verdict(verdicts, method)
-    bad = mine[mine["verdict"].isin(["fails", "inconclusive"])]
-    detail = "; ".join(
-        f"{r.target} {r.statistic.replace('_', ' ')} {fmt(r.estimate)} "
-        f"({fmt(r.ci_low)} to {fmt(r.ci_high)}) {r.verdict} against {fmt(r.criterion)}"
-        for r in bad.itertuples()
-    )
-    return f"{label}: {word} the criteria" + (f" ({detail})." if detail else ".")
+    parts = []
+    for verdict in ("fails", "inconclusive"):
+        rows = mine[mine["verdict"].eq(verdict)]
+        what = list(dict.fromkeys(_criterion_name(r) for r in rows.itertuples()))
+        if what:
+            parts.append(f"{verdict}: {', '.join(what)}")
+    n = int((mine["verdict"] != NOT_ASSESSED).sum())
+    detail = f" ({'; '.join(parts)})" if parts else ""
+    return f"{label}: {word} ({n} criteria assessed){detail}."
+
+
+def _criterion_name(row: object) -> str:
+    """A criterion in a few words: 'R2* limits', 'hemorrhage sensitivity 10 %'."""
+    target, statistic = str(row.target), str(row.statistic)
+    if statistic.startswith("loa"):
+        return f"{PARAMETERS[target].label} limits" if target in PARAMETERS else f"{target} limits"
+    if statistic == "ccc":
+        return f"{PARAMETERS[target].label} CCC {fmt(row.estimate, 2)}"
+    return f"{target} sensitivity {100 * float(row.estimate):.0f} %"
 
 
 def key_results(analysis: Analysis) -> list[str]:
