@@ -32,7 +32,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
 from cohort.analysis.group_comparison import group_comparison_table
 from cohort.analysis.group_tables import ALL_GROUPS
-from cohort.demo import REFERENCE, make_demo
+from cohort.demo import REFERENCE, TEST, make_demo
 from cohort.domain.segments import SEGMENTS
 from cohort.stats.models import GEE_PATH, JOINT_GROUP, MIXED_PATH
 from tests.analysis.group_data import demo_findings as findings
@@ -40,7 +40,7 @@ from tests.analysis.group_data import demo_findings as findings
 
 def study_frames(n_subjects: int, seed: int = 20261202):
     """values, subjects and paired tables of the demo cohort (benchmark only)."""
-    demo = make_demo(n_subjects, seed)
+    demo = make_demo(n_subjects, seed, test_methods=(TEST,))  # one test method
     values = demo.values[demo.values["value"].astype(str) != ""].copy()
     values["value"] = values["value"].astype(float)
     subjects = demo.subjects.astype({"age": str, "days_since_infarction": str})

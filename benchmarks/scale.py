@@ -67,12 +67,12 @@ def write_cohort(folder: Path, n_subjects: int, seed: int = 20261202) -> Path:
     study = folder / "study.toml"
     if study.exists():
         return study
-    cohort = demo.make_demo(n_subjects, seed)
+    cohort = demo.make_demo(n_subjects, seed, test_methods=(demo.TEST,))  # one test method
     values = cohort.values.copy()
     values["value"] = pd.to_numeric(values["value"].replace("", np.nan))
     values.to_parquet(folder / "values.parquet", index=False)
     cohort.subjects.astype(str).to_parquet(folder / "subjects.parquet", index=False)
-    text = demo.STUDY_TOML.replace("values.csv", "values.parquet")
+    text = demo.study_toml((demo.TEST,)).replace("values.csv", "values.parquet")
     study.write_text(text.replace("subjects.csv", "subjects.parquet"), encoding="utf-8")
     return study
 
