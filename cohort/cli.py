@@ -31,6 +31,7 @@ def _add_study_arguments(parser: argparse.ArgumentParser) -> None:
     flags.add_argument("--subjects", help="subjects table (CSV, TSV, XLSX or Parquet)")
     flags.add_argument("--reference", help="name of the reference method")
     flags.add_argument("--groups", help="comma-separated group names, in display order")
+    flags.add_argument("--methods", help="comma-separated test-method names, in display order")
     flags.add_argument("--segment-model", default=None, choices=tuple(MODELS))
     flags.add_argument("--ff-unit", default=None, choices=FF_UNITS)
     flags.add_argument("--field-unit", default=None, choices=FIELD_UNITS)
@@ -45,6 +46,7 @@ def settings_from_args(args: argparse.Namespace) -> StudySettings:
         "subjects": args.subjects,
         "reference": args.reference,
         "groups": args.groups,
+        "methods": args.methods,
         "segment_model": args.segment_model,
         "ff_unit": args.ff_unit,
         "field_unit": args.field_unit,
@@ -65,8 +67,9 @@ def settings_from_args(args: argparse.Namespace) -> StudySettings:
             "cohort: give a study file, or all of " + ", ".join("--" + k for k in missing)
         )
     groups = tuple(g for g in (given.pop("groups", "") or "").split(",") if g.strip())
+    methods = tuple(m for m in (given.pop("methods", "") or "").split(",") if m.strip())
     remote = tuple(s for s in (given.pop("remote_segments", "") or "").split(",") if s.strip())
-    return build_settings(groups=groups, remote_segments=remote, **given)
+    return build_settings(groups=groups, methods=methods, remote_segments=remote, **given)
 
 
 def cmd_check(args: argparse.Namespace) -> int:

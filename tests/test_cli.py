@@ -52,6 +52,7 @@ def test_check_with_flags_says_the_same_as_with_a_study_file(tmp_path, capsys):
             "--subjects", str(folder / "subjects.csv"),
             "--reference", "reference-fit",
             "--groups", "control,acute,chronic",
+            "--methods", "net-full,quickmap,net-mag1",
         ]
     )  # fmt: skip
     assert code == 0

@@ -169,7 +169,7 @@ def analyse(
     >>> analysis = analyse(study, options_from_study(study, n_boot=0, figures=False))
     >>> row = analysis.tables["agreement"].iloc[0]
     >>> str(row["parameter"]), str(row["method"]), int(row["n_subjects"])
-    ('ff', 'quickmap', 6)
+    ('ff', 'net-full', 6)
     """
     options = options or study.settings.options
     step = _Steps(progress)

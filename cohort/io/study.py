@@ -217,7 +217,7 @@ def load_study(source: str | Path | StudySettings) -> Study:
     >>> list(study.paired.columns[:4])
     ['parameter', 'method', 'reference', 'subject']
     >>> dict(sorted(study.records["status"].value_counts().items()))  # every input value
-    {'excluded': 3, 'missing': 3, 'used': 606}
+    {'missing': 3, 'used': 1221}
     """
     settings = source if isinstance(source, StudySettings) else read_study_file(source)
     log = ProblemLog()
@@ -274,7 +274,7 @@ def check_study(source: str | Path | StudySettings) -> Study:
     >>> with tempfile.TemporaryDirectory() as folder:
     ...     study = check_study(write_demo(folder, n_subjects=6))
     >>> len(study.subjects), study.reference, study.test_methods
-    (6, 'reference-fit', ('quickmap',))
+    (6, 'reference-fit', ('net-full', 'quickmap', 'net-mag1'))
     """
     return load_study(source)
 

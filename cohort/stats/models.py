@@ -88,7 +88,7 @@ def choose_model_path(
     Examples
     --------
     >>> choose_model_path(1_020)
-    ('mixed', 'auto: 1,020 values per fit <= 10,000')
+    ('mixed', 'auto: largest fit 1,020 values <= 10,000')
     >>> choose_model_path(170_000)[0]
     'subject-means'
     """
@@ -96,9 +96,9 @@ def choose_model_path(
     if path != "auto":
         return path, f"{path} requested"
     if n_observations <= max_mixed_observations:
-        return "mixed", f"auto: {n_observations:,} values per fit <= {max_mixed_observations:,}"
+        return "mixed", f"auto: largest fit {n_observations:,} values <= {max_mixed_observations:,}"
     return "subject-means", (
-        f"auto, large cohort: {n_observations:,} values per fit > {max_mixed_observations:,}"
+        f"auto, large cohort: largest fit {n_observations:,} values > {max_mixed_observations:,}"
     )
 
 

@@ -113,6 +113,11 @@ def test_a_study_with_formula_like_names_runs_and_is_guarded(tmp_path):
     subjects["subject"] = subjects["subject"].replace({first: "=1+1"})
     values["method"] = values["method"].replace({"quickmap": "+quick"})
     values.to_csv(study_file.parent / "values.csv", index=False)
+    text = study_file.read_text(encoding="utf-8")  # the study file names the method too
+    study_file.write_text(
+        text.replace('"quickmap"', '"+quick"').replace("quickmap =", '"+quick" ='),
+        encoding="utf-8",
+    )
     subjects.to_csv(study_file.parent / "subjects.csv", index=False)
     study = load_study(study_file)
     summary = run(study, tmp_path / "out", options_from_study(study, n_boot=0, figures=False))
@@ -122,4 +127,4 @@ def test_a_study_with_formula_like_names_runs_and_is_guarded(tmp_path):
             cells = table[column]
             assert not cells.isin(["=1+1", "+quick"]).any(), (path.name, column)
     agreement = pd.read_csv(summary.out / "tables" / "agreement.csv", dtype=str)
-    assert set(agreement["method"]) == {"'+quick"}
+    assert "'+quick" in set(agreement["method"])

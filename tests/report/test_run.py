@@ -193,8 +193,14 @@ def test_cli_run_prints_a_summary_with_the_report_path(demo_run, tmp_path, capsy
 def test_report_escapes_user_text(tmp_path):
     study_file = write_demo(tmp_path / "demo", n_subjects=6)
     values = pd.read_csv(study_file.parent / "values.csv", dtype=str, keep_default_na=False)
-    values["method"] = values["method"].replace({"quickmap": "<script>alert('x')</script>"})
+    hostile = "<script>alert('x')</script>"
+    values["method"] = values["method"].replace({"quickmap": hostile})
     values.to_csv(study_file.parent / "values.csv", index=False)
+    text = study_file.read_text(encoding="utf-8")  # the study file names the method too
+    study_file.write_text(
+        text.replace('"quickmap"', f'"{hostile}"').replace("quickmap =", f'"{hostile}" ='),
+        encoding="utf-8",
+    )
     run(
         study_file,
         tmp_path / "out",
