@@ -274,3 +274,33 @@ def test_one_method_study_file_loads_with_its_cohort(tmp_path):
     (tmp_path / "study.toml").write_text(text, encoding="utf-8")
     study = load_study(tmp_path / "study.toml")
     assert study.test_methods == (demo.QUICKMAP,)
+
+
+def test_alerts_tell_the_story_of_the_demo(analysis):
+    # the planted truth (cohort/demo.py): quickmap agrees well overall and misses hemorrhage
+    # (deceptive agreement), net-mag1 agrees poorly and misses lesions (missed lesions, which
+    # the deceptive-agreement screen alone never flagged), net-full raises nothing
+    labels = demo.METHOD_LABELS
+    alerts = analysis.alerts
+    deceptive = [a for a in alerts if a.startswith("Deceptive agreement")]
+    missed = [a for a in alerts if a.startswith("Missed lesions")]
+    assert deceptive and all(labels[demo.QUICKMAP] in a for a in deceptive)
+    assert any(labels[demo.NET_MAG1] in a and "hemorrhage" in a for a in missed)
+    assert not any(labels[demo.NET_FULL] in a for a in alerts)
+    assert not any(labels[demo.QUICKMAP] in a for a in missed)  # the stronger form stands alone
+    # strongest first: every deceptive-agreement alert before the first missed-lesion alert
+    assert max(alerts.index(a) for a in deceptive) < min(alerts.index(a) for a in missed)
+
+
+def test_head_to_head_ranks_the_methods_as_planted(analysis):
+    # net-full shows more hemorrhage than net-mag1 (planted: about 1.0 against 0.1), and the
+    # subject cluster bootstrap interval of the difference excludes 0
+    d = analysis.tables["method_differences"]
+    row = d[
+        d["method_a"].eq(demo.NET_FULL)
+        & d["method_b"].eq(demo.NET_MAG1)
+        & d["target"].eq("hemorrhage")
+        & d["statistic"].eq("sensitivity")
+    ].iloc[0]
+    assert row["difference"] > 0.5 and row["ci_low"] > 0
+    assert row["p_adjusted"] < 0.05 and row["p_adjusted"] >= row["p_value"]
