@@ -14,6 +14,7 @@ import pandas as pd
 from cohort.analysis.display import FIELD_DEPENDENT_PARAMETERS
 from cohort.domain.units import PARAMETERS
 from cohort.domain.wording import percent_level
+from cohort.figures.layout import _letter
 from cohort.figures.tables import CI_METHOD, CONFIDENCE_LEVEL, NOTE, _float, _positive, _text
 from cohort.io.study import Study
 from cohort.plots.style import fit_label
@@ -33,6 +34,43 @@ _RATIO_TEXT = (
     "the ratio limits of agreement, back-transformed from the limits of the log ratio "
     "(Bland & Altman 2007 on log(test/reference))"
 )
+
+
+def _method_title(study: Study, method: object) -> str:
+    """The name a figure shows for a method (panel titles, row labels, captions): its display
+    label (``[study.method_labels]``), else its name."""
+    return study.method_label(method)
+
+
+def _panels_text(titles: Sequence[str]) -> str:
+    """``"a, quickmap; b, net-full"``: each panel's letter and method, in panel order."""
+    return "; ".join(f"{_letter(k)}, {t}" for k, t in enumerate(titles))
+
+
+def _panel_lead(k: int, title: str, several: bool) -> str:
+    """How a caption starts the numbers of panel ``k``: ``"b, quickmap: "`` (no letter for
+    a figure of one panel)."""
+    return f"{_letter(k)}, {title}: " if several else ""
+
+
+def _pairs_text(pairs: pd.DataFrame) -> str:
+    return f"{len(pairs)} (subject, segment) pairs from {pairs['subject'].nunique()} subjects"
+
+
+def _interval_text(row: pd.Series, low: str, high: str, unit: str = "") -> str:
+    """``"95% CI 0.41 to 0.77 %"``, or why there is none."""
+    text = _ci_text(row, low, high, unit)
+    if text is not None:
+        return f"{_level_text(row)} CI {text}"
+    return "CI not estimable" if low in row.index else "no CI in the agreement table"
+
+
+def _how_text(rows: Sequence[pd.Series], column: str = CI_METHOD) -> str:
+    """How the intervals of the rows were obtained, said once when all agree."""
+    hows = [_text(r, column) or "method not stated in the agreement table" for r in rows]
+    if len(set(hows)) == 1:
+        return hows[0]
+    return "; ".join(f"{_letter(k)}, {h}" for k, h in enumerate(hows))
 
 
 def _names_note(names: Sequence[object], where: str) -> str:

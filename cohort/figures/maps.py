@@ -10,9 +10,18 @@ import numpy as np
 import pandas as pd
 
 from cohort.analysis import display
-from cohort.figures.captions import _label, _names_note, _strength_note, _tesla, _tesla_slug, _unit
+from cohort.figures.captions import (
+    _label,
+    _method_title,
+    _names_note,
+    _pairs_text,
+    _strength_note,
+    _tesla,
+    _tesla_slug,
+    _unit,
+)
 from cohort.figures.layout import _grid_width, _shared_limits
-from cohort.figures.records import _Drawn, _Item, _slug
+from cohort.figures.records import _Drawn, _Item
 from cohort.figures.tables import (
     DIFFERENCE_MEDIANS,
     SEGMENT_MEDIANS,
@@ -100,6 +109,8 @@ def _median_figures(study: Study, tables: Mapping[str, pd.DataFrame]) -> Iterato
 
 
 def _difference_figures(study: Study, tables: Mapping[str, pd.DataFrame]) -> Iterator[_Item]:
+    """One figure per parameter: median differences per segment, the test methods as rows
+    (in the study's order) and the groups as columns, on one symmetric colour scale."""
     table = _display_table(tables, DIFFERENCE_MEDIANS, lambda: display.difference_medians(study))
     paired = study.paired
     numbers = _model_numbers(study)
@@ -109,55 +120,72 @@ def _difference_figures(study: Study, tables: Mapping[str, pd.DataFrame]) -> Ite
         if part.empty:
             continue
         medians = display.select(table, parameter=parameter)
-        limits = _shared_limits(medians["median_difference"].to_numpy(dtype=float), signed=True)
-        for method in study.test_methods:
-            sub = part[part["method"] == method]
-            if sub.empty:
-                continue
-            key = f"bullseye_difference_{parameter}_by_group_{_slug(method)}"
-            frame = display.select(medians, method=method)[
-                ["group", "segment", "median_difference"]
-            ]
-            frame = frame.rename(columns={"median_difference": "value"})
-            groups = _groups_present(study, sub)
-            n = sub.groupby("group")["subject"].nunique()
-            names = {g: f"{_group_label(study, g)} (n = {int(n.get(g, 0))})" for g in groups}
-            frame["col"] = frame["group"].astype(str).map(names)
-            grid = bullseye_grid(
-                frame,
-                row=None,
-                col="col",
-                kind="difference",
-                model=study.settings.segment_model,
-                parameter=parameter,
-                col_order=[names[g] for g in groups],
-                width=_grid_width(len(groups)),
-                colorbar_label=(
-                    f"{fit_axis_name(method)} \N{MINUS SIGN} "
-                    f"{fit_axis_name(study.reference)}\n"
-                    f"median difference ({_unit(parameter)})"
-                ),
-                **limits,
-            )
-            caption = (
-                f"Median difference {method} minus {study.reference} of {_label(parameter)} "
-                f"({_unit(parameter)}) per AHA segment over the subjects of each group "
-                f"(panels; n subjects in the title), from the {len(sub)} pairs of "
-                f"{sub['subject'].nunique()} subjects where both methods have a value. "
-                "Diverging colour scale centred at 0 with limits symmetric about 0 and shared "
-                f"by every {_label(parameter)} difference map of this set; red: {method} "
-                "higher, blue: lower; hatched: no pairs. Medians are display summaries; "
-                "bias and its CI are in the agreement table."
-                + _strength_note(study, parameter, sub, False)
-            )
-            yield _Drawn(
-                key,
-                f"Median difference of {_label(parameter)}, {method} vs {study.reference}, "
-                "by group",
-                caption,
-                "maps",
-                parameter,
-                method,
-                grid.fig,
-                grid,
-            )
+        methods = [m for m in study.test_methods if (part["method"] == m).any()]
+        yield _difference_figure(study, parameter, part, medians, methods)
+
+
+def _difference_figure(
+    study: Study, parameter: str, part: pd.DataFrame, medians: pd.DataFrame, methods: list[str]
+) -> _Drawn:
+    groups = _groups_present(study, part)
+    several = len(methods) > 1
+    frames = []
+    for method in methods:
+        frame = display.select(medians, method=method)[["group", "segment", "median_difference"]]
+        frames.append(frame.assign(row=_method_title(study, method)))
+    frame = pd.concat(frames, ignore_index=True).rename(columns={"median_difference": "value"})
+    frame = frame[frame["group"].astype(str).isin(groups)]
+    # n subjects per group over all test methods (a method's own counts are in the caption)
+    n = part.groupby("group", observed=True)["subject"].nunique()
+    names = {g: f"{_group_label(study, g)} (n = {int(n.get(g, 0))})" for g in groups}
+    frame["col"] = frame["group"].astype(str).map(names)
+    limits = _shared_limits(frame["value"].to_numpy(dtype=float), signed=True)
+    test = "test method" if several else fit_axis_name(_method_title(study, methods[0]))
+    grid = bullseye_grid(
+        frame,
+        row="row" if several else None,
+        col="col",
+        kind="difference",
+        model=study.settings.segment_model,
+        parameter=parameter,
+        row_order=[_method_title(study, m) for m in methods] if several else None,
+        col_order=[names[g] for g in groups],
+        width=_grid_width(len(groups)),
+        colorbar_label=(
+            f"{test} \N{MINUS SIGN} {fit_axis_name(study.reference)}\n"
+            f"median difference ({_unit(parameter)})"
+        ),
+        **limits,
+    )
+    counts = "; ".join(
+        f"{_method_title(study, m)}: {_pairs_text(part[part['method'] == m])}" for m in methods
+    )
+    which = (
+        f"each test method (rows, top to bottom: "
+        f"{', '.join(_method_title(study, m) for m in methods)}) minus {study.reference}"
+        if several
+        else f"{_method_title(study, methods[0])} minus {study.reference}"
+    )
+    caption = (
+        f"Median difference of {_label(parameter)} ({_unit(parameter)}) per AHA segment, "
+        f"{which}, over the subjects of each group (columns; n subjects in the title), from "
+        f"the pairs where both methods have a value ({counts}). Diverging colour scale "
+        "centred at 0 with limits symmetric about 0, shared by every panel; red: the test "
+        "method higher, blue: lower; hatched: no pairs. Medians are display summaries; bias "
+        "and its CI are in the agreement table." + _strength_note(study, parameter, part, False)
+    )
+    title = (
+        f"Median difference of {_label(parameter)}, "
+        + ("test methods" if several else _method_title(study, methods[0]))
+        + f" vs {study.reference}, by group"
+    )
+    return _Drawn(
+        f"bullseye_difference_{parameter}_by_group",
+        title,
+        caption,
+        "maps",
+        parameter,
+        None if several else methods[0],
+        grid.fig,
+        grid,
+    )

@@ -24,7 +24,14 @@ from matplotlib.lines import Line2D
 from matplotlib.ticker import FixedLocator, FuncFormatter, NullFormatter
 
 from cohort.domain.units import PARAMETERS
-from cohort.plots.limit_lines import _draw_limits, _get, _linear_text
+from cohort.plots.limit_lines import (
+    NO_DIFFERENCE_COLOUR,
+    _draw_limits,
+    _get,
+    _legend_above,
+    _linear_text,
+    _numbers_above,
+)
 from cohort.plots.style import (
     AXIS_NAME_WIDTH,
     CATEGORICAL,
@@ -40,6 +47,10 @@ DENSITY_THRESHOLD = 5000
 
 DENSITY_GRIDSIZE = 45
 LIMIT_TYPES = ("auto", "constant", "regression")
+KEYS = ("legend", "text", "none")
+"""Where a plot says what its lines are: a legend above the axes with the numbers
+(``"legend"``); the numbers only, in a few lines of text just above the axes, for a panel
+of a figure with one shared key (``"text"``, gid ``"numbers"``); nothing (``"none"``)."""
 
 
 def _axis_label(parameter: str) -> str:
@@ -87,7 +98,9 @@ def _group_levels(
     absent = [g for g in present if g not in order]
     if absent:
         raise ValueError(f"group_order must list every group, missing {absent!r}")
-    return labels, [g for g in order if g in present]
+    # every level of the order keeps its style, so panels of one figure colour a group alike
+    # even when a panel lacks some group (drawn without points and without a legend entry)
+    return labels, list(dict.fromkeys(order))
 
 
 def _use_density(density: bool | str, n: int, grouped: bool) -> bool:
@@ -151,6 +164,8 @@ def _draw_data(
     styles = group_styles(levels)
     for level in levels:
         mask = labels == level
+        if not mask.any():
+            continue
         colour, marker = styles[level]
         artists.append(
             ax.scatter(
@@ -173,39 +188,7 @@ def _decimals(scale: float) -> int:
     return int(min(4, max(0, 2 - math.floor(math.log10(scale)))))
 
 
-def _blank(label: str = "") -> Line2D:
-    return Line2D([], [], linestyle="none", marker="none", label=label)
-
-
-def _legend_above(ax: Axes, line_handles: list[Any], group_handles: list[Any]) -> None:
-    """Legend outside the axes, above them, so it never covers data.
-
-    Two columns when there are groups (lines left, groups right, padded to equal length so
-    they do not mix), otherwise one column for long labels.
-    """
-    if group_handles and line_handles:
-        rows = max(len(line_handles), len(group_handles))
-        lines = line_handles + [_blank() for _ in range(rows - len(line_handles))]
-        groups = group_handles + [_blank() for _ in range(rows - len(group_handles))]
-        handles, ncols = lines + groups, 2
-    else:
-        handles = line_handles or group_handles
-        if not handles:
-            return
-        longest = max(len(h.get_label()) for h in handles)
-        ncols = 1 if longest > 30 or len(handles) < 2 else 2
-    ax.legend(
-        handles=handles,
-        loc="lower left",
-        bbox_to_anchor=(0.0, 1.02),
-        ncols=ncols,
-        borderaxespad=0.0,
-        handlelength=1.6,
-        columnspacing=1.2,
-        frameon=False,
-    )
-
-
+# Long: the numpydoc parameters of 15 options are most of it; drawing is in helpers
 def bland_altman_plot(
     reference: Any,
     test: Any,
@@ -219,6 +202,8 @@ def bland_altman_plot(
     limit_type: str = "auto",
     reference_name: str = "reference",
     test_name: str = "test",
+    key: str = "legend",
+    decimals: int | None = None,
     ax: Axes | None = None,
     **kwargs: object,
 ) -> Axes:
@@ -248,6 +233,13 @@ def bland_altman_plot(
         keys are present and finite, else constant).
     reference_name, test_name
         Method names for axis labels.
+    key
+        One of :data:`KEYS`: a legend above the axes with the numbers (default), or for a
+        panel of a figure with one shared key (:func:`~cohort.plots.limit_lines.limit_key`,
+        :func:`group_key`, :func:`shared_legend`) the numbers only, as text above the axes.
+    decimals
+        Decimals of the numbers shown (ratios: 3); by default about three significant
+        digits of the differences' range (give one value to the panels of a figure).
     ax
         Axes to draw on; a new single-column figure in the house style if None.
     **kwargs
@@ -269,6 +261,7 @@ def bland_altman_plot(
     axis_label = _axis_label(parameter)
     if limit_type not in LIMIT_TYPES:
         raise ValueError(f"limit_type must be one of {list(LIMIT_TYPES)}, got {limit_type!r}")
+    _check_key(key)
     ref, tst = _pairs(reference, test)
     if ratio:
         _check_positive(ref, tst)
@@ -282,10 +275,23 @@ def bland_altman_plot(
             _, ax = plt.subplots(figsize=figure_size("single", aspect=0.85))
         data_artists = _draw_data(ax, mean, y, labels, levels, use_density, ratio, dict(kwargs))
         _no_difference_line(ax, ratio)
-        line_handles = [] if limits is None else _limits(ax, limits, mean, y, ratio, limit_type)
+        compact = key == "text"
+        line_handles = (
+            []
+            if limits is None
+            else _limits(ax, limits, mean, y, ratio, limit_type, compact, decimals)
+        )
         _label_bland_altman(ax, reference_name, test_name, axis_label, ratio)
-        _legend_above(ax, line_handles, data_artists if labels is not None else [])
+        if key == "legend":
+            _legend_above(ax, line_handles, data_artists if labels is not None else [])
+        elif key == "text":
+            _numbers_above(ax, [h.get_label() for h in line_handles if isinstance(h, Line2D)])
     return ax
+
+
+def _check_key(key: str) -> None:
+    if key not in KEYS:
+        raise ValueError(f"key must be one of {list(KEYS)}, got {key!r}")
 
 
 def _no_difference_line(ax: Axes, ratio: bool) -> None:
@@ -293,16 +299,24 @@ def _no_difference_line(ax: Axes, ratio: bool) -> None:
     if ratio:
         ax.set_yscale("log")
     no_difference = 1.0 if ratio else 0.0
-    ax.axhline(no_difference, color="#888888", linewidth=0.6, linestyle=":", zorder=1)
+    ax.axhline(no_difference, color=NO_DIFFERENCE_COLOUR, linewidth=0.6, linestyle=":", zorder=1)
 
 
 def _limits(
-    ax: Axes, limits: Any, mean: np.ndarray, y: np.ndarray, ratio: bool, limit_type: str
+    ax: Axes,
+    limits: Any,
+    mean: np.ndarray,
+    y: np.ndarray,
+    ratio: bool,
+    limit_type: str,
+    compact: bool,
+    decimals: int | None,
 ) -> list[Any]:
     """The limit lines, their numbers given to about three significant digits of the spread."""
-    spread = float(np.ptp(y)) if y.size > 1 else float(abs(y[0]))
-    decimals = 3 if ratio else _decimals(spread)
-    return _draw_limits(ax, limits, mean, ratio, limit_type, decimals)
+    if decimals is None:
+        spread = float(np.ptp(y)) if y.size > 1 else float(abs(y[0]))
+        decimals = 3 if ratio else _decimals(spread)
+    return _draw_limits(ax, limits, mean, ratio, limit_type, decimals, compact)
 
 
 def _check_positive(ref: np.ndarray, tst: np.ndarray) -> None:
@@ -353,6 +367,7 @@ def _ratio_ticks(ax: Axes) -> None:
     ax.yaxis.set_minor_formatter(NullFormatter())
 
 
+# Long: the numpydoc parameters of 14 options are most of it; drawing is in helpers
 def method_scatter(
     reference: Any,
     test: Any,
@@ -366,6 +381,8 @@ def method_scatter(
     density: bool | str = "auto",
     reference_name: str = "reference",
     test_name: str = "test",
+    axis_limits: tuple[float, float] | None = None,
+    key: str = "legend",
     ax: Axes | None = None,
     **kwargs: object,
 ) -> Axes:
@@ -381,8 +398,12 @@ def method_scatter(
     ccc, ccc_ci
         Lin's concordance correlation coefficient (Lin 1989) and its CI, shown in the
         legend.
-    groups, group_order, parameter, density, reference_name, test_name, ax, **kwargs
-        As in :func:`bland_altman_plot`.
+    axis_limits
+        Limits of both axes (e.g. the same for every panel of a figure); by default the
+        range of all values with 5 % room.
+    groups, group_order, parameter, density, reference_name, test_name, key, ax, **kwargs
+        As in :func:`bland_altman_plot` (``key="text"``: the fitted line and CCC as text
+        above the axes; the procedure's name belongs in the shared key, :func:`scatter_key`).
 
     Returns
     -------
@@ -406,10 +427,10 @@ def method_scatter(
     fit = _fitted_line(line)
     if ccc is not None and not isinstance(ccc, int | float):
         raise ValueError(f"ccc must be a number, got {ccc!r}")
+    _check_key(key)
     lo = float(min(ref.min(), tst.min()))
     hi = float(max(ref.max(), tst.max()))
-    pad = 0.05 * (hi - lo) if hi > lo else max(abs(hi) * 0.05, 1.0)
-    lims = (lo - pad, hi + pad)
+    lims = _axis_limits(lo, hi) if axis_limits is None else _checked_limits(axis_limits)
 
     context = style_context() if ax is None else contextlib.nullcontext()
     with context:
@@ -427,8 +448,26 @@ def method_scatter(
         ax.set_aspect("equal", adjustable="box")
         ax.set_xlabel(f"{fit_axis_name(reference_name)}, {axis_label}")
         ax.set_ylabel(f"{fit_axis_name(test_name)}, {axis_label}")
-        _legend_above(ax, handles, data_artists if labels is not None else [])
+        if key == "legend":
+            _legend_above(ax, handles, data_artists if labels is not None else [])
+        elif key == "text":
+            # the fitted line without its procedure's name (in the shared key), and the CCC
+            texts = [h.get_label().split(": ", 1)[-1] for h in handles[1:]]
+            _numbers_above(ax, texts)
     return ax
+
+
+def _axis_limits(lo: float, hi: float) -> tuple[float, float]:
+    """The range of the values with 5 % room on each side (1 unit when all are equal)."""
+    pad = 0.05 * (hi - lo) if hi > lo else max(abs(hi) * 0.05, 1.0)
+    return (lo - pad, hi + pad)
+
+
+def _checked_limits(limits: Any) -> tuple[float, float]:
+    low, high = (float(v) for v in limits)
+    if not (math.isfinite(low) and math.isfinite(high) and low < high):
+        raise ValueError(f"axis_limits must be two finite numbers, low < high, got {limits!r}")
+    return low, high
 
 
 def _fitted_line(line: Any) -> tuple[float, float, str] | None:
@@ -455,7 +494,7 @@ def _scatter_lines(
     identity = ax.axline(
         (lims[0], lims[0]),
         slope=1.0,
-        color="#888888",
+        color=NO_DIFFERENCE_COLOUR,
         linestyle=":",
         linewidth=0.8,
         label="identity",

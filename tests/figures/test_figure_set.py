@@ -189,18 +189,17 @@ def test_keys_are_unique_and_records_are_complete(drawn):
 
 def test_the_figures_of_the_brief_are_there(drawn, study):
     keys = set(by_key(drawn[0]))
-    (method,) = study.test_methods
     expected = {
-        f"bland_altman_r2star_{method}",
-        f"bland_altman_ratio_r2star_{method}",
-        f"scatter_ff_{method}",
+        "bland_altman_r2star",
+        "bland_altman_ratio_r2star",
+        "scatter_ff",
         "bullseye_median_ff_by_group_method",
-        f"bullseye_difference_r2star_by_group_{method}",
+        "bullseye_difference_r2star_by_group",
         "bullseye_prevalence_hemorrhage_by_group_method",
         "bullseye_prevalence_fat_by_group_method",
         "bullseye_subjects_r2star",
         "groups_r2star_subject_mean",
-        f"paired_ff_subject_mean_{method}",
+        "paired_ff_subject_mean",
     }
     assert expected <= keys
     # R2* depends on B0 (Storey et al., J Magn Reson Imaging 2007): one median map per
@@ -211,7 +210,7 @@ def test_the_figures_of_the_brief_are_there(drawn, study):
         assert f"bullseye_median_r2star_{b0:g}T_by_group_method" in keys
     assert "bullseye_median_ff_1.5T_by_group_method" not in keys
     # ratio limits only where the table has them (NaN for ff and field)
-    assert f"bland_altman_ratio_ff_{method}" not in keys
+    assert "bland_altman_ratio_ff" not in keys
 
 
 def test_the_set_stays_small_for_the_demo(drawn):
@@ -255,18 +254,19 @@ def test_captions_name_the_unit(drawn):
 
 def test_agreement_captions_give_counts_estimator_and_ci(drawn, study, tables):
     records = by_key(drawn[0])
-    (method,) = study.test_methods
     for parameter in ("ff", "r2star", "field"):
-        pairs = study.paired[
-            (study.paired["parameter"] == parameter) & (study.paired["method"] == method)
-        ]
-        counts = f"{len(pairs)} (subject, segment) pairs from {pairs['subject'].nunique()} subjects"
-        ba = records[f"bland_altman_{parameter}_{method}"].caption
-        assert counts in ba
+        ba = records[f"bland_altman_{parameter}"].caption
+        scatter = records[f"scatter_{parameter}"].caption
+        for method in study.test_methods:
+            pairs = study.paired[
+                (study.paired["parameter"] == parameter) & (study.paired["method"] == method)
+            ]
+            n_subjects = pairs["subject"].nunique()
+            counts = f"{len(pairs)} (subject, segment) pairs from {n_subjects} subjects"
+            assert counts in ba and counts in scatter
         assert "Bland & Altman 2007" in ba and "1.96 SD" in ba
         assert "95% CIs" in ba and "fake intervals for the test" in ba
-        scatter = records[f"scatter_{parameter}_{method}"].caption
-        assert counts in scatter and "Passing-Bablok" in scatter and "concordance" in scatter
+        assert "Passing-Bablok" in scatter and "concordance" in scatter
 
 
 def test_group_captions_say_the_means_are_for_display(drawn):
@@ -311,10 +311,9 @@ def test_absent_tables_skip_their_figures(study, tmp_path):
     assert folder.is_dir() and all(p.exists() for r in records for p in r.paths)
     keys = {r.key for r in records}
     skipped = {s.key: s.reason for s in records.skipped}
-    (method,) = study.test_methods
     assert not any(k.startswith(("bland_altman", "scatter", "bullseye_prevalence")) for k in keys)
-    assert f"bland_altman_ff_{method}" in skipped and f"scatter_ff_{method}" in skipped
-    assert "no 'agreement' table" in skipped[f"bland_altman_ff_{method}"]
+    assert "bland_altman_ff" in skipped and "scatter_ff" in skipped
+    assert "no 'agreement' table" in skipped["bland_altman_ff"]
     assert "bullseye_prevalence_by_group_method" in skipped
     assert "bullseye_subjects_r2star" in skipped
     # figures that need only the study are still drawn
@@ -359,20 +358,31 @@ def test_arguments_are_checked(study, tables, tmp_path):
 
 
 def test_bland_altman_draws_the_table_row(study, tables):
-    row = tables["agreement"].query("parameter == 'ff' and stratum == 'all'").iloc[0]
-    pairs = study.paired[study.paired["parameter"] == "ff"]
-    drawn = agreement_figures._bland_altman(study, row, pairs, "k")
-    ax = drawn.fig.axes[0]
-    lines = {line.get_gid(): line for line in ax.get_lines()}
-    # the stratum "all" row, not the group row whose bias is 1 higher
-    assert lines["bias"].get_ydata()[0] == pytest.approx(row["bias"])
-    assert lines["loa_high"].get_ydata()[0] == pytest.approx(row["loa_high"])
-    points = sum(len(c.get_offsets()) for c in ax.collections if str(c.get_gid()).startswith("p"))
-    assert points == len(pairs)
-    # the legend (above the axes) fits inside the figure
+    drawn = next(agreement_figures._agreement_figures(study, tables))
+    assert drawn.key == "bland_altman_ff"
+    panels = [ax for ax in drawn.fig.axes if ax.get_visible()]
+    assert len(panels) == len(study.test_methods)
+    for ax, method in zip(panels, study.test_methods, strict=True):
+        row = (
+            tables["agreement"]
+            .query("parameter == 'ff' and stratum == 'all' and method == @method")
+            .iloc[0]
+        )
+        pairs = study.paired[
+            (study.paired["parameter"] == "ff") & (study.paired["method"] == method)
+        ]
+        lines = {line.get_gid(): line for line in ax.get_lines()}
+        # the stratum "all" row, not the group row whose bias is 1 higher
+        assert lines["bias"].get_ydata()[0] == pytest.approx(row["bias"])
+        assert lines["loa_high"].get_ydata()[0] == pytest.approx(row["loa_high"])
+        points = sum(
+            len(c.get_offsets()) for c in ax.collections if str(c.get_gid()).startswith("p")
+        )
+        assert points == len(pairs)
+    # the one legend (above the panels) fits inside the figure
     fig = drawn.fig
     fig.draw_without_rendering()
-    box = ax.get_legend().get_window_extent(fig.canvas.get_renderer())
+    box = fig.legends[0].get_window_extent(fig.canvas.get_renderer())
     assert box.x1 <= fig.bbox.x1 + 1 and box.x0 >= fig.bbox.x0 - 1
 
 
@@ -507,7 +517,7 @@ def test_real_tables_of_the_package_are_drawn(study, tmp_path):
     tables = {"agreement": agreement, "findings_segment": findings}
     gen = agreement_figures._agreement_figures(study, tables)
     first = next(gen)
-    assert first.key == "bland_altman_ff_quickmap"
+    assert first.key == "bland_altman_ff"
     assert "No CI bands" in first.caption
     (prevalence, *_) = list(findings_figures._prevalence_figures(study, tables))
     assert prevalence.key == "bullseye_prevalence_hemorrhage_by_group_method"
@@ -562,16 +572,16 @@ def test_long_names_give_valid_distinct_file_names(long_named):
         assert len(name.encode("utf-8")) <= 255, name
         assert not set(name) & set('/\\:*?"<>| $'), name
         assert name.isascii(), name
-    for prefix in ("bland_altman_ff_", "scatter_r2star_", "paired_ff_subject_mean_"):
-        assert sum(n.startswith(prefix) for n in names) == 2, prefix  # one per test method
+    for prefix in ("bland_altman_ff.", "scatter_r2star.", "paired_ff_subject_mean."):
+        assert sum(n.startswith(prefix) for n in names) == 1, prefix  # one for all methods
 
 
 def test_long_names_are_in_full_in_the_captions_and_records(long_named):
     _, records, _ = long_named
-    per_method = [r for r in records if r.method is not None]
-    assert {r.method for r in per_method} == {LONG_A, LONG_B}
-    for record in per_method:
-        assert record.method in record.caption, record.key
+    combined = [r for r in records if r.key.startswith(("bland_altman_", "scatter_", "paired_"))]
+    assert combined and all(r.method is None for r in combined)  # a figure of both methods
+    for record in combined:
+        assert LONG_A in record.caption and LONG_B in record.caption, record.key
     maps = by_key(records)["bullseye_median_ff_by_group_method"]
     for name in (LONG_REFERENCE, LONG_A, LONG_B):
         assert f"'{name}'" in maps.caption

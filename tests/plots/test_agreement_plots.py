@@ -24,6 +24,7 @@ from matplotlib.colors import to_rgba
 
 from cohort.domain.units import PARAMETERS
 from cohort.plots.agreement_plots import DENSITY_THRESHOLD, bland_altman_plot, method_scatter
+from cohort.plots.limit_lines import group_key, limit_key, scatter_key, shared_legend
 from cohort.plots.style import CATEGORICAL, save_figure
 
 LIMITS = {
@@ -273,3 +274,105 @@ def test_agreement_figures_write_png_and_svg(tmp_path):
     fig, axes = plt.subplots(1, 2)  # drawing on given axes returns those axes
     assert bland_altman_plot(reference, test, ax=axes[0]) is axes[0]
     assert method_scatter(reference, test, ax=axes[1]) is axes[1]
+
+
+# --- panels of a figure with one shared key ----------------------------------------------------
+
+
+def test_text_key_writes_the_numbers_above_the_axes_not_a_legend():
+    reference, test = _pairs()
+    ax = bland_altman_plot(reference, test, limits=LIMITS, key="text")
+    assert ax.get_legend() is None
+    numbers = _by_gid(ax, "numbers")
+    assert numbers.get_text() == (
+        "bias 0.40 (95% CI 0.25 to 0.55)\nlimits \N{MINUS SIGN}1.20 to 2.00"
+    )
+    assert numbers.xycoords == "axes fraction" and numbers.xy == (0.5, 1.0)  # above the axes
+    ax = bland_altman_plot(reference, test, limits=LIMITS, key="text", decimals=3)
+    assert _by_gid(ax, "numbers").get_text().startswith("bias 0.400 (95% CI 0.250 to 0.550)")
+    limits = {**LIMITS, "loa_low_ci_low": float("nan"), "loa_low_ci_high": float("nan")}
+    ax = bland_altman_plot(reference, test, limits=limits, key="text")
+    assert _by_gid(ax, "numbers").get_text().endswith("95% CI not estimable")
+    ax = bland_altman_plot(reference, test, limits=LIMITS, key="none")
+    assert ax.get_legend() is None and not ax.texts
+    with pytest.raises(ValueError, match="key must be one of"):
+        bland_altman_plot(reference, test, key="below")
+
+
+def test_ratio_text_names_the_mean_ratio():
+    reference, test = _pairs()
+    limits = {"bias": 1.05, "loa_low": 0.8, "loa_high": 1.3}
+    ax = bland_altman_plot(reference, test, limits=limits, ratio=True, key="text")
+    assert _by_gid(ax, "numbers").get_text() == "mean ratio 1.050\nlimits 0.800 to 1.300"
+
+
+def test_scatter_text_key_and_given_axis_limits():
+    reference, test = _pairs()
+    line = {"slope": 1.08, "intercept": -0.05, "procedure": "Passing-Bablok"}
+    ax = method_scatter(reference, test, line=line, ccc=0.934, axis_limits=(-5.0, 40.0), key="text")
+    assert ax.get_legend() is None
+    assert ax.get_xlim() == (-5.0, 40.0) and ax.get_ylim() == (-5.0, 40.0)
+    text = _by_gid(ax, "numbers").get_text()
+    assert text.startswith("y = 1.080 x \N{MINUS SIGN} 0.05") and text.endswith("CCC = 0.934")
+    with pytest.raises(ValueError, match="axis_limits must be two finite numbers"):
+        method_scatter(reference, test, axis_limits=(3.0, 1.0))
+
+
+def test_a_group_order_keeps_each_groups_style_when_a_panel_lacks_one():
+    # panels of one figure colour a group alike: the style follows the full order
+    reference, test = _pairs()
+    groups = np.where(np.arange(reference.size) % 2 == 0, "acute", "chronic")
+    ax = bland_altman_plot(
+        reference, test, groups=groups, group_order=["control", "acute", "chronic"]
+    )
+    acute, chronic = _by_gid(ax, "points-acute"), _by_gid(ax, "points-chronic")
+    np.testing.assert_allclose(acute.get_facecolor()[0][:3], to_rgba(CATEGORICAL[1])[:3])
+    np.testing.assert_allclose(chronic.get_facecolor()[0][:3], to_rgba(CATEGORICAL[2])[:3])
+    assert not [a for a in ax.get_children() if a.get_gid() == "points-control"]
+    assert not any(t.startswith("control") for t in _legend_texts(ax))
+
+
+def test_shared_keys_name_the_lines_without_numbers():
+    assert [h.get_label() for h in limit_key()] == ["no difference", "bias", "limits of agreement"]
+    ratio = [h.get_label() for h in limit_key(ratio=True, bands=True, level=0.9)]
+    assert ratio == ["ratio 1", "geometric mean ratio", "limits of agreement", "90% CI (shaded)"]
+    regression = [h.get_label() for h in limit_key(regression=True)]
+    assert regression[1] == "bias (regression on mean)"
+    assert [h.get_label() for h in scatter_key(None)] == ["identity"]
+    groups = group_key(["MI", "control"], {"MI": 20})
+    assert [h.get_label() for h in groups] == ["MI (n = 20)", "control (n = 0)"]
+    assert groups[0].get_color() == CATEGORICAL[0] and groups[1].get_marker() == "s"
+
+
+def _legend_rows(legend) -> list[list[str]]:
+    """The rows of a legend as drawn: legends fill column by column, and the shared key pads
+    its columns to equal length."""
+    texts = [t.get_text() for t in legend.get_texts()]
+    nrows = len(texts) // legend._ncols
+    return [texts[r::nrows] for r in range(nrows)]
+
+
+@pytest.mark.parametrize("width", [7.2, 3.5, 2.0])
+def test_shared_legend_fits_and_never_mixes_lines_and_groups_in_a_row(width):
+    lines = limit_key(bands=True, level=0.95)
+    groups = group_key([f"a long group name number {k}" for k in range(3)], {})
+    names = {h.get_label() for h in lines}
+    fig, _ = plt.subplots(1, 3, figsize=(width, 3.0), layout="constrained")
+    legend = shared_legend(fig, lines, groups)
+    assert fig.legends == [legend]
+    fig.draw_without_rendering()
+    if width > 2.0:  # a figure too narrow for any layout keeps the narrowest
+        assert legend.get_window_extent(fig.canvas.get_renderer()).width <= fig.bbox.width
+    rows = _legend_rows(legend)
+    texts = [t for row in rows for t in row if t]
+    assert sorted(texts) == sorted([*names, *(h.get_label() for h in groups)])
+    if len(rows) > 1:  # lines and groups apart: in rows of their own, or in columns
+        columns = [list(c) for c in zip(*rows, strict=True)]
+        pure = [all(len({t in names for t in part if t}) <= 1 for part in parts)
+                for parts in (rows, columns)]  # fmt: skip
+        assert any(pure), rows
+
+
+def test_shared_legend_without_entries_is_none():
+    fig, _ = plt.subplots()
+    assert shared_legend(fig, [], []) is None
