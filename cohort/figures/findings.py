@@ -11,7 +11,7 @@ from collections.abc import Iterator, Mapping
 import pandas as pd
 
 from cohort.analysis import display
-from cohort.figures.captions import _names_note, _threshold_text
+from cohort.figures.captions import _method_title, _names_note, _threshold_text
 from cohort.figures.layout import _grid_width
 from cohort.figures.records import SkippedFigure, _Drawn, _Item, _slug
 from cohort.figures.tables import (
@@ -76,6 +76,8 @@ def _prevalence_figure(
 ) -> _Drawn:
     """One finding's prevalence maps: group rows, method columns, drops outlined."""
     frame["outlined"] = _outlined(frame, methods, study.reference)
+    frame["method"] = frame["method"].astype(str).map(lambda m: _method_title(study, m))
+    methods = [_method_title(study, m) for m in methods]
     # Round half up (12.5 % of 16 subjects reads 13, not the round-half-even 12).
     frame["note"] = [str(math.floor(v + 0.5)) for v in frame["value"]]
     groups = _groups_present(study, classified)

@@ -61,7 +61,8 @@ def _median_figures(study: Study, tables: Mapping[str, pd.DataFrame]) -> Iterato
             row_names = {g: f"{_group_label(study, g)}\n(n = {int(n.get(g, 0))})" for g in groups}
             frame["row"] = frame["group"].astype(str).map(row_names)
             present = set(frame["method"].unique())
-            methods = [m for m in study.methods if m in present]
+            methods = [_method_title(study, m) for m in study.methods if m in present]
+            frame["method"] = frame["method"].astype(str).map(lambda m: _method_title(study, m))
             where = "" if b0 is None else f" at {_tesla(b0)}"
             label = f"median {_label(parameter)}{where} ({_unit(parameter)})"
             grid = bullseye_grid(
