@@ -28,7 +28,7 @@ from dataclasses import dataclass
 import pandas as pd
 
 from cohort.analysis.alerts import DEFAULT_MIN_BIAS_DIFFERENCE, AgreementWarning
-from cohort.analysis.verdicts import cluster_columns
+from cohort.analysis.verdicts import COLLAPSED, preferred_interval
 from cohort.domain.acceptance import DEFAULT_MIN_PPV, Acceptance
 from cohort.domain.wording import percent_level
 
@@ -57,14 +57,12 @@ def _percent(value: float) -> str:
 
 def _interval_text(row: pd.Series, statistic: str) -> str:
     """``"95 % CI 26 to 55 %; subject cluster bootstrap"`` (or the Wilson interval)."""
-    for low, high, how in cluster_columns(statistic, "findings"):
-        lo, hi = float(row.get(low, math.nan)), float(row.get(high, math.nan))
-        if math.isfinite(lo) and math.isfinite(hi):
-            level = percent_level(float(row["confidence_level"])).replace("%", " %")
-            method = str(row.get(how, how)) if how in row.index else how
-            method = method.split(",")[0]
-            return f"{level} CI {100 * lo:.0f} to {100 * hi:.0f} %, {method}"
-    return "no interval could be computed"
+    lo, hi, how, _ = preferred_interval(row, statistic, "findings")
+    if not (math.isfinite(lo) and math.isfinite(hi)):
+        return "no interval could be computed"
+    level = percent_level(float(row["confidence_level"])).replace("%", " %")
+    method = "Wilson score" if how == COLLAPSED else how.split(",")[0]
+    return f"{level} CI {100 * lo:.0f} to {100 * hi:.0f} %, {method}"
 
 
 def _subjects_missed(segments: pd.DataFrame, reference: str, method: str, finding: str):

@@ -16,8 +16,8 @@ every method against a baseline, one row per target and statistic with the diffe
 Intervals: subject cluster bootstrap percentile, each resample drawing subjects once for
 both methods (Field CA, Welsh AH. J R Stat Soc B 2007;69:369-390 (memory)). p-values: for
 sensitivity and specificity the clustered test of Obuchowski (1998) with the exact McNemar
-test beside it (:mod:`cohort.stats.paired_proportions`); for the parameter statistics a
-bootstrap test from the same resamples (:func:`bootstrap_p_value`).
+test beside it; for the parameter statistics a Wald test with the bootstrap standard error
+(:func:`bootstrap_p_value`).
 """
 
 from __future__ import annotations
@@ -30,6 +30,7 @@ from itertools import combinations
 
 import numpy as np
 import pandas as pd
+from scipy import stats
 
 from cohort.domain.options import DEFAULT_N_BOOT, DEFAULT_SEED
 from cohort.domain.units import PARAMETERS
@@ -84,37 +85,37 @@ statistic, or a positive one of a "higher" statistic, favours ``method_a``."""
 
 SAME_SUBJECTS = "same subjects for both methods"
 BOOTSTRAP_P_METHOD = (
-    "subject cluster bootstrap, two-sided: 2 x (1 + resampled differences on the smaller "
-    "side of 0) / (B + 1) (Davison & Hinkley 1997)"
+    "Wald test with the subject cluster bootstrap standard error, z = difference / SD of "
+    "the resampled differences, two-sided normal (Efron & Tibshirani 1993)"
 )
 NO_BOOTSTRAP_P = "bootstrap test not computed: no bootstrap requested (n_boot=0)"
 _PAIRED_REQUIRED = ("parameter", "method", "reference", "subject", "reference_value", "test_value")
 _FINDINGS_REQUIRED = ("finding", "method", "subject", "segment", "positive")
 
 
-def bootstrap_p_value(draws: np.ndarray) -> float:
-    """Two-sided bootstrap p-value of "no difference" from resampled differences.
+def bootstrap_p_value(estimate: float, draws: np.ndarray) -> float:
+    """Two-sided p-value of "no difference" from the bootstrap standard error.
 
-    ``p = min(1, 2 (1 + min(#{d* <= 0}, #{d* >= 0})) / (B + 1))`` over the ``B`` finite
-    resampled differences ``d*``: the smallest two-sided level at which the percentile
-    interval excludes 0 (test by inverting a bootstrap confidence interval), counted with
-    the Monte Carlo ``(1 + #)/(B + 1)`` so that no p-value falls below ``2/(B + 1)``, the
-    resolution of ``B`` resamples. Davison AC, Hinkley DV. Bootstrap Methods and their
-    Application. Cambridge University Press 1997, chapter 4 (memory). NaN without finite
-    draws.
+    ``z = d / sd(d*)`` with ``d`` the observed difference and ``sd(d*)`` the standard
+    deviation of the finite resampled differences; ``p = 2 (1 - Phi(|z|))``: the normal
+    approximation with a bootstrap standard error (Efron & Tibshirani 1993, An Introduction
+    to the Bootstrap, ch. 6 and 12 (memory)); no floor at ``2/(B + 1)``, unlike a count of
+    resamples. NaN with fewer than 2 finite draws; 1 when ``d`` and every draw are 0.
 
     Examples
     --------
-    >>> round(bootstrap_p_value(np.array([-1.0, 1.0, 2.0, 3.0])), 3)
-    0.8
-    >>> round(bootstrap_p_value(np.arange(1.0, 20.0)), 3)  # all 19 above 0: 2 / 20
-    0.1
+    >>> round(bootstrap_p_value(1.0, np.array([0.5, 1.0, 1.5])), 4)  # z = 1 / 0.5 = 2
+    0.0455
+    >>> bootstrap_p_value(0.0, np.zeros(5))
+    1.0
     """
     finite = draws[np.isfinite(draws)]
-    if finite.size == 0:
+    if finite.size < 2 or not math.isfinite(estimate):
         return math.nan
-    smaller = min(np.count_nonzero(finite <= 0), np.count_nonzero(finite >= 0))
-    return float(min(1.0, 2.0 * (1 + smaller) / (finite.size + 1)))
+    se = float(np.std(finite, ddof=1))
+    if se == 0.0:
+        return 1.0 if estimate == 0.0 else 0.0
+    return float(2.0 * stats.norm.sf(abs(estimate) / se))
 
 
 # --- input ------------------------------------------------------------------------------------
@@ -301,7 +302,7 @@ def _parameter_rows(
             both = None if None in draws else draws[0][statistic] - draws[1][statistic]
             ci = boot.interval(both, k)
             if both is not None:
-                p = bootstrap_p_value(both)
+                p = bootstrap_p_value(diff, both)
             elif boot.n_boot == 0:
                 notes.append(NO_BOOTSTRAP_P)
             else:

@@ -45,12 +45,45 @@ def rule_text(statistic: str, criterion: float) -> str:
 
 
 def _interval(row: pd.Series, name: str, cluster: str) -> tuple[float, float, str]:
-    """The first interval the table reports for ``name``: the bootstrap, else analytic."""
-    for low, high, how in cluster_columns(name, cluster):
+    lo, hi, how, _ = preferred_interval(row, name, cluster)
+    return lo, hi, how
+
+
+COLLAPSED = (
+    "the subject cluster bootstrap interval has zero width (every resample gives the same "
+    "proportion), so the Wilson score interval, units treated as independent, is used"
+)
+
+
+def preferred_interval(row: pd.Series, name: str, cluster: str) -> tuple[float, float, str, bool]:
+    """The interval the verdicts, the overview and the alerts use for ``name``: the first
+    finite one of :func:`cluster_columns` (the subject cluster bootstrap, else the analytic
+    or Wilson interval), how it was obtained, and whether it is the first. A cluster
+    bootstrap interval of a proportion with zero width (a proportion of 0 or 1 in every
+    resample) is skipped for the Wilson interval: it would claim certainty.
+
+    Examples
+    --------
+    >>> row = pd.Series({"sensitivity_cluster_ci_low": 1.0, "sensitivity_cluster_ci_high": 1.0,
+    ...                  "sensitivity_ci_low": 0.57, "sensitivity_ci_high": 1.0})
+    >>> preferred_interval(row, "sensitivity", "findings")[:2]
+    (0.57, 1.0)
+    """
+    for k, (low, high, how) in enumerate(cluster_columns(name, cluster)):
         lo, hi = float(row.get(low, math.nan)), float(row.get(high, math.nan))
-        if math.isfinite(lo) and math.isfinite(hi):
-            return lo, hi, str(row.get(how, "")) if how in row.index else how
-    return math.nan, math.nan, "no interval could be computed"
+        if not (math.isfinite(lo) and math.isfinite(hi)):
+            continue
+        if cluster == "findings" and k == 0 and lo == hi:
+            continue
+        text = str(row.get(how, "")) if how in row.index else how
+        if (
+            cluster == "findings"
+            and k == 1
+            and math.isfinite(float(row.get(f"{name}_cluster_ci_low", math.nan)))
+        ):
+            text = COLLAPSED
+        return lo, hi, text, k == 0
+    return math.nan, math.nan, "no interval could be computed", True
 
 
 def cluster_columns(name: str, cluster: str) -> list[tuple[str, str, str]]:
@@ -122,7 +155,7 @@ def _finding_rows(detection: pd.DataFrame, acceptance: Acceptance, methods: Sequ
             rows.append(
                 _row(method, str(row.finding), "finding", "sensitivity", float(row.sensitivity),
                      _interval(series, "sensitivity", "findings"), criterion, "",
-                     float(row.confidence_level), str(row.note) if row.note == row.note else "")
+                     float(row.confidence_level), "")
             )  # fmt: skip
     return rows
 

@@ -17,7 +17,7 @@ from collections.abc import Iterator, Mapping, Sequence
 
 import pandas as pd
 
-from cohort.analysis.verdicts import cluster_columns, overall_verdict
+from cohort.analysis.verdicts import overall_verdict, preferred_interval
 from cohort.domain.units import PARAMETERS
 from cohort.domain.wording import interval_label
 from cohort.figures.captions import _label, _names_note, _unit
@@ -105,12 +105,10 @@ def _interval(row: pd.Series, name: str, table: str) -> tuple[float, float, str,
     """The interval the verdicts use (:func:`cohort.analysis.verdicts.cluster_columns`: the
     subject cluster bootstrap, else the analytic or Wilson interval), how it was obtained,
     and whether it is the preferred (first) one."""
-    for k, (low, high, how) in enumerate(cluster_columns(name, table)):
-        lo, hi = _float(row, low), _float(row, high)
-        if math.isfinite(lo) and math.isfinite(hi):
-            text = (_text(row, how) or "method not stated in the table") if how in row else how
-            return lo, hi, text, k == 0
-    return math.nan, math.nan, "", True
+    lo, hi, text, preferred = preferred_interval(row, name, table)
+    if not (math.isfinite(lo) and math.isfinite(hi)):
+        return math.nan, math.nan, "", True
+    return lo, hi, text or "method not stated in the table", preferred
 
 
 class _Parts:

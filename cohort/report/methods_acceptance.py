@@ -21,8 +21,8 @@ REFERENCES: dict[str, str] = {
     "limits in the graphic. Clin Chem 2004;50:2216-2218.",
     "obuchowski1998": "Obuchowski NA. On the comparison of correlated proportions for "
     "clustered data. Stat Med 1998;17:1495-1507.",
-    "davison1997": "Davison AC, Hinkley DV. Bootstrap methods and their application. "
-    "Cambridge: Cambridge University Press; 1997.",
+    "efron1993": "Efron B, Tibshirani RJ. An introduction to the bootstrap. New York: "
+    "Chapman & Hall; 1993.",
 }
 """References cited only by these paragraphs (appended to the methods text's list)."""
 
@@ -44,6 +44,22 @@ def _criteria(analysis: Analysis) -> list[str]:
     return items
 
 
+def _interval_source(analysis: Analysis) -> str:
+    """Which intervals the verdicts used, as the verdicts table records per row."""
+    if analysis.options.n_boot == 0:
+        return (
+            "no bootstrap ran, so the analytic intervals of the limits and CCC and the Wilson "
+            "intervals of sensitivity were used; they treat the segments of a subject as "
+            "independent and are too narrow when segments are correlated"
+        )
+    return (
+        "the subject cluster bootstrap interval; where it collapsed to a single value (a "
+        "sensitivity of 0 or 1 in every resample) or could not be computed, the Wilson or "
+        "analytic interval, which treats the segments of a subject as independent, as the "
+        "verdicts table states per row"
+    )
+
+
 def acceptance_lines(analysis: Analysis) -> list[str]:
     """The paragraph on acceptance criteria and verdicts (empty without criteria)."""
     if "method_verdicts" not in analysis.tables:
@@ -52,13 +68,13 @@ def acceptance_lines(analysis: Analysis) -> list[str]:
     return [
         "",
         "## Acceptance criteria",
-        "Acceptance criteria were set before the analysis [bland1999]: "
+        "The acceptance criteria declared for the analysis (limits of agreement compared with "
+        "a clinically acceptable difference [bland1999]) were: "
         + "; ".join(_criteria(analysis))
         + ". Each test method received a verdict per criterion from the estimate and its "
-        "confidence interval (the subject cluster bootstrap interval where it was computed, "
-        "otherwise the analytic or Wilson interval, as the verdicts table states per row); for "
-        "limits of agreement the outer confidence bounds of both limits were compared with the "
-        f"acceptable difference [stockl2004]. Verdicts: {rules}.",
+        f"confidence interval ({_interval_source(analysis)}); for limits of agreement the "
+        "outer confidence bounds of both limits were compared with the acceptable difference "
+        f"[stockl2004]. Verdicts: {rules}.",
     ]
 
 
@@ -87,10 +103,12 @@ def alert_lines(analysis: Analysis) -> list[str]:
         "segments the reference called positive (b+) differed from the bias in the other "
         f"segments (b-) by |b+ - b-| >= max(floor, ({o.bias_ratio:g} - 1) |b-|), with floors "
         f"of {floors} (one tenth of the default thresholds at 1.5 T; a convention of this "
-        "analysis). Where the concordance correlation of the method was at least "
-        f"{o.ccc_min:g}, a sensitivity below {o.sensitivity_max:g} or such a bias shift was "
-        "reported instead as deceptive agreement (good overall agreement that hides missed "
-        "lesions). An over-calling alert was raised when the positive predictive value was "
+        "analysis). Where Lin's CCC (whole cohort) of the parameter that defines the finding "
+        f"was at least {o.ccc_min:g}, a segment-level sensitivity below "
+        f"{o.sensitivity_max:g} or such a bias shift was reported as deceptive agreement "
+        "(good overall agreement that hides missed lesions), and the missed-lesion or "
+        "bias-shift alert of the same method and finding was not repeated. An over-calling "
+        "alert was raised when the positive predictive value was "
         f"below {DEFAULT_MIN_PPV:g}, judged only where the method called at least "
         f"{MIN_TEST_POSITIVE} segments positive.",
     ]
@@ -117,9 +135,8 @@ def difference_lines(analysis: Analysis) -> list[str]:
         else "not computed, since no bootstrap ran (B = 0)"
     )
     bootstrap_test = (
-        "differences in agreement statistics were tested with a two-sided bootstrap test "
-        "from the same resamples, p = min(1, 2 (1 + r) / (B + 1)) with r the smaller of the "
-        "numbers of resampled differences at or below and at or above zero [davison1997]"
+        "differences in agreement statistics were tested with a two-sided Wald test using the "
+        "standard deviation of the resampled differences as standard error [efron1993]"
         if o.n_boot
         else "differences in agreement statistics were not tested (no bootstrap)"
     )

@@ -14,7 +14,7 @@ import math
 import pandas as pd
 
 from cohort.analysis.pipeline import Analysis
-from cohort.analysis.verdicts import cluster_columns, overall_verdict
+from cohort.analysis.verdicts import overall_verdict, preferred_interval
 from cohort.domain.acceptance import NOT_ASSESSED
 from cohort.domain.units import PARAMETERS
 from cohort.domain.wording import interval_label
@@ -25,11 +25,8 @@ MAX_KEY_LINES = 10
 
 
 def _bounds(row: pd.Series, name: str, kind: str) -> tuple[float, float]:
-    for low, high, _ in cluster_columns(name, kind):
-        lo, hi = float(row.get(low, math.nan)), float(row.get(high, math.nan))
-        if math.isfinite(lo) and math.isfinite(hi):
-            return lo, hi
-    return math.nan, math.nan
+    low, high, _, _ = preferred_interval(row, name, kind)
+    return low, high
 
 
 def _verdict_of(verdicts: pd.DataFrame | None, method: str, target: str, stats: tuple) -> str:
@@ -93,8 +90,14 @@ def overview_table(analysis: Analysis) -> pd.DataFrame:
             found = overall[overall["method"].astype(str).eq(method) & overall["parameter"].eq(p)]
             head = f"{PARAMETERS[p].label}: limits of agreement ({PARAMETERS[p].unit})"
             cell = _limits_cell(found.iloc[0]) if len(found) else "no pairs"
-            word = _verdict_of(verdicts, method, p, ("loa_low", "loa_high", "ccc"))
+            word = _verdict_of(verdicts, method, p, ("loa_low", "loa_high"))
             out[head] = f"{cell}: {word}" if word else cell
+            if p in study.settings.acceptance.ccc and len(found):
+                row = found.iloc[0]
+                low, high = _bounds(row, "ccc", "agreement")
+                ccc = f"{fmt(row['ccc'], 2)} ({fmt(low, 2)} to {fmt(high, 2)})"
+                word = _verdict_of(verdicts, method, p, ("ccc",))
+                out[f"{PARAMETERS[p].label}: CCC"] = f"{ccc}: {word}" if word else ccc
         for _, row in segment[segment["method"].astype(str).eq(method)].iterrows():
             head = f"{row['finding']}: segments shown / reference-positive (%)"
             cell = _sensitivity_cell(row)
@@ -129,7 +132,10 @@ def _line(analysis: Analysis, method: str) -> str:
         what = list(dict.fromkeys(_criterion_name(r) for r in rows.itertuples()))
         if what:
             parts.append(f"{verdict}: {', '.join(what)}")
-    n = int((mine["verdict"] != NOT_ASSESSED).sum())
+    assessed = mine[mine["verdict"] != NOT_ASSESSED]
+    # one criterion per target and kind: both limits of agreement are one criterion
+    n = len({(r.target, "loa" if r.statistic.startswith("loa") else r.statistic)
+             for r in assessed.itertuples()})  # fmt: skip
     detail = f" ({'; '.join(parts)})" if parts else ""
     return f"{label}: {word} ({n} criteria assessed){detail}."
 

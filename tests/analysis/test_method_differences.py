@@ -10,6 +10,7 @@ import warnings
 import numpy as np
 import pandas as pd
 import pytest
+from scipy import stats
 from statsmodels.stats.multitest import multipletests
 
 from cohort.analysis.agreement_table import agreement_table
@@ -325,7 +326,9 @@ def test_intervals_equal_a_direct_computation_on_the_same_resampled_subjects():
         low, high = np.quantile(np.array(draws), [0.025, 0.975])
         assert (r["ci_low"], r["ci_high"]) == pytest.approx((low, high), rel=1e-9, abs=1e-12)
         if statistic != "sensitivity":
-            assert r["p_value"] == pytest.approx(bootstrap_p_value(np.array(draws)))
+            assert r["p_value"] == pytest.approx(
+                bootstrap_p_value(r["difference"], np.array(draws))
+            )
 
 
 # --- p-values and their correction --------------------------------------------------------------
@@ -362,12 +365,17 @@ def test_other_corrections_follow_adjust_p(planted):
     assert (bh["correction"] == "benjamini-hochberg").all()
 
 
-def test_bootstrap_p_value_counts_the_smaller_side():
-    # Davison & Hinkley 1997 (memory): (1 + count) / (B + 1), doubled for two sides
+def test_bootstrap_p_value_is_a_wald_test_with_the_bootstrap_standard_error():
+    # Efron & Tibshirani 1993 (memory): z = d / se_boot; hand computation with scipy.stats.norm
     draws = np.array([-0.5, 0.2, 0.4, 0.9, 1.3, np.nan])
-    assert bootstrap_p_value(draws) == pytest.approx(2 * (1 + 1) / (5 + 1))
-    assert bootstrap_p_value(np.zeros(9)) == 1.0
-    assert bootstrap_p_value(np.full(3, np.nan)) != bootstrap_p_value(np.full(3, np.nan))
+    se = np.std(draws[:5], ddof=1)
+    assert bootstrap_p_value(0.6, draws) == pytest.approx(2 * stats.norm.sf(0.6 / se))
+    assert bootstrap_p_value(0.0, np.zeros(9)) == 1.0
+    assert bootstrap_p_value(0.2, np.zeros(9)) == 0.0
+    assert np.isnan(bootstrap_p_value(0.3, np.full(3, np.nan)))
+    # no floor at 2 / (B + 1): a difference far from 0 gets a p-value far below it
+    wide = np.random.default_rng(1).normal(5.0, 1.0, 200)
+    assert bootstrap_p_value(5.0, wide) < 1e-5 < 2 / 201
 
 
 # --- n_boot = 0, baseline mode, not estimable and bad input --------------------------------------
