@@ -45,7 +45,6 @@ from cohort.domain.rules import (
     TableSchema,
     check_value,
     choice,
-    did_you_mean,
     flag,
     integer,
     integers,
@@ -162,8 +161,8 @@ def _labels_problems(
     return [
         study_problem(
             file,
-            f"[study.{labels_key}] {name} labels a {what} that is not declared in [study] "
-            f"{key}{did_you_mean(name, names)}",
+            f"[study.{labels_key}] {name} labels a {what} that [study] {key} does not list "
+            f"(it lists {names}; a misspelling may be in either key)",
             name,
             f"one of {names}",
         )

@@ -96,8 +96,8 @@ def read_problems(tmp_path: Path, lines: str) -> list:
         ('methods = ["fast"]\n[study.method_labels]\nfast = 3',
          "[study] method_labels is not valid", "{fast = 3}"),
         ('methods = ["fast", "slow"]\n[study.method_labels]\nfats = "F"',
-         "[study.method_labels] fats labels a method that is not declared in [study] methods; "
-         "did you mean 'fast'?", "fats"),
+         "[study.method_labels] fats labels a method that [study] methods does not list (it "
+         "lists ['fast', 'slow', 'ref']; a misspelling may be in either key)", "fats"),
     ],
 )  # fmt: skip
 def test_bad_methods_and_labels_are_located(tmp_path, lines, detail, value):
