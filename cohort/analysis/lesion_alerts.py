@@ -127,19 +127,35 @@ def _missed(row, method, finding, what, acceptance, segments, reference, label):
     sens, criterion = float(row["sensitivity"]), acceptance.min_sensitivity(finding)
     if not (math.isfinite(sens) and sens < criterion):
         return []
-    tp, fn = int(row["tp"]), int(row["fn"])
-    with_missed, with_any = _subjects_missed(segments, reference, method, finding)
-    message = (
-        f"Missed lesions: {label(method)} shows {tp} of {tp + fn} segments that the reference "
-        "shows as "
-        f"positive for {what} ({_percent(sens)}, {_interval_text(row, 'sensitivity')}), "
-        f"below the {_percent(criterion)} it should reach; it misses at least one in "
-        f"{with_missed} of {with_any} subjects with such segments"
+    message = "Missed lesions: " + shown_text(
+        row, label(method), what, criterion, segments, reference, method
     )
     return [
         LesionAlert("missed-lesions", method, finding, str(row["parameter"]), sens, criterion,
                     message)
     ]  # fmt: skip
+
+
+def shown_text(
+    row: pd.Series,
+    shown: str,
+    what: str,
+    criterion: float,
+    segments: pd.DataFrame,
+    reference: str,
+    method: str,
+) -> str:
+    """``"<shown> shows 5 of 49 segments that the reference shows as positive for <what>
+    (10 %, 95 % CI ...), below the 80 % it should reach; it misses at least one in 15 of 16
+    subjects with such segments"``: the words of a missed-lesion alert."""
+    sens, tp, fn = float(row["sensitivity"]), int(row["tp"]), int(row["fn"])
+    with_missed, with_any = _subjects_missed(segments, reference, method, str(row["finding"]))
+    return (
+        f"{shown} shows {tp} of {tp + fn} segments that the reference shows as positive for "
+        f"{what} ({_percent(sens)}, {_interval_text(row, 'sensitivity')}), below the "
+        f"{_percent(criterion)} it should reach; it misses at least one in {with_missed} of "
+        f"{with_any} subjects with such segments"
+    )
 
 
 def _over_called(row, method, finding, what, label):

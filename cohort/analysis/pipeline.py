@@ -30,6 +30,7 @@ from cohort.analysis.group_comparison import study_group_comparison
 from cohort.analysis.lesion_alerts import (
     bias_shift_alerts,
     missed_lesion_alerts,
+    shown_text,
     without_stronger,
 )
 from cohort.analysis.method_differences import method_differences
@@ -347,7 +348,38 @@ def _alerts(
     )
     rank = {m: i for i, m in enumerate(methods)}
     kept = sorted(without_stronger(lesions, deceptive), key=lambda a: rank.get(a.method, 0))
-    return [w.message for w in deceptive] + [a.message for a in kept]
+    stronger = [_deceptive_text(w, study, findings, detection, labels, options) for w in deceptive]
+    return stronger + [a.message for a in kept]
+
+
+def _deceptive_text(
+    warning: AgreementWarning,
+    study: Study,
+    findings: FindingsResult,
+    detection: pd.DataFrame,
+    labels: Mapping[str, str],
+    options: RunOptions,
+) -> str:
+    """A deceptive-agreement alert of low sensitivity in the words of the missed-lesion
+    alert (counts, interval, subjects affected); a bias shift keeps its own words."""
+    rows = detection[
+        detection["method"].astype(str).eq(warning.method)
+        & detection["finding"].astype(str).eq(warning.finding)
+        & detection["level"].eq("segment")
+        & detection["stratum"].eq("all")
+    ]
+    if warning.kind != "low-sensitivity" or rows.empty:
+        return warning.message
+    criterion = options.sensitivity_max
+    return (
+        f"Deceptive agreement: {study.method_label(warning.method)} agrees well with the "
+        f"reference on {warning.parameter} overall (CCC {warning.ccc:.3f}, at least "
+        f"{options.ccc_min:g}), yet it "
+        + shown_text(
+            rows.iloc[0], "", labels.get(warning.finding, warning.finding), criterion,
+            findings.segments, study.reference, warning.method,
+        ).lstrip()
+    )  # fmt: skip
 
 
 def _present(options: SwapOptions, paired: pd.DataFrame) -> SwapOptions:
