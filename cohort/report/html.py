@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import base64
 import html
+import io
 import math
 from collections.abc import Iterable, Mapping
 from pathlib import Path
@@ -78,10 +79,31 @@ def table(
     return "\n".join(parts)
 
 
+EMBED_MAX_WIDTH = 1600
+"""Widest PNG embedded in the report, in pixels (a double-column figure at about 220 dpi):
+wider figures are scaled down for the page only; the files in ``figures/`` keep 300 dpi."""
+
+
+def _for_page(raw: bytes) -> bytes:
+    """A PNG as the page embeds it: at most :data:`EMBED_MAX_WIDTH` wide and reduced to a
+    256-colour palette (a third of the bytes; the figure files are unchanged)."""
+    from PIL import Image
+
+    with Image.open(io.BytesIO(raw)) as image:
+        image.load()
+        if image.width > EMBED_MAX_WIDTH:
+            height = round(image.height * EMBED_MAX_WIDTH / image.width)
+            image = image.resize((EMBED_MAX_WIDTH, height), Image.Resampling.LANCZOS)
+        small = image.convert("RGB").quantize(256, method=Image.Quantize.FASTOCTREE)
+        out = io.BytesIO()
+        small.save(out, format="PNG", optimize=True)
+    return out.getvalue() if out.tell() < len(raw) else raw
+
+
 def figure(path: str | Path, caption: str, alt: str | None = None) -> str:
-    """A PNG figure embedded as base64 with its caption."""
+    """A PNG figure embedded as base64 with its caption (:func:`_for_page`)."""
     raw = Path(path).read_bytes()
-    data = base64.b64encode(raw).decode("ascii")
+    data = base64.b64encode(_for_page(raw)).decode("ascii")
     # a figure wider than a single journal column (about 1,100 px at 300 dpi: 90 mm) is
     # a multi-panel figure: shown at the page's full width (PNG width: bytes 16-20, IHDR)
     wide = raw[:8] == b"\x89PNG\r\n\x1a\n" and int.from_bytes(raw[16:20], "big") > 1400
