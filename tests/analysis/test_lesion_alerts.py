@@ -137,8 +137,11 @@ def test_alerts_in_order_with_labels_and_hand_counted_numbers(done, tables):
     assert (poor["tp"], poor["fn"], poor["with_missed"], poor["with_any"]) == (6, 18, 6, 8)
     assert (over["tp"], over["fp"]) == (24, 12)
     expected = [
-        # 1-2: the deceptive-agreement screen first (high CCC, sensitivity 12/24 = 0.500)
-        ("Deceptive agreement: Method D ", ["12 of 24 segments", "sensitivity 0.500"]),
+        # 1-2: the deceptive-agreement screen first (high CCC, sensitivity 12/24 = 50 %; in
+        # the words of the missed-lesion alert: all 8 subjects with lesions have a missed one)
+        ("Deceptive agreement: Method D ", [
+            "CCC 0.985, at least 0.9", "yet it shows 12 of 24 segments", "(50 %",
+            "in 8 of 8 subjects"]),
         ("Deceptive agreement: Method D ", ["reads lesions differently"]),
         # 3-4: then every method in the study's order (good, poor, overcall, deceptive):
         # poor misses 18 of 24 lesions although its CCC is low (the point of this alert);
