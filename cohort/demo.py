@@ -474,16 +474,21 @@ def is_demo_folder(folder: str | Path) -> bool:
         names <= set(DEMO_FILES)
         and not any((folder / n).is_symlink() or not (folder / n).is_file() for n in names)
         and study.is_file()
-        and study.read_text(encoding="utf-8") == STUDY_TOML
+        and study.read_text(encoding="utf-8") in (STUDY_TOML, study_toml((TEST,)))
     )
 
 
 def write_demo(
-    folder: str | Path, n_subjects: int = DEMO_SUBJECTS.default, seed: int = DEMO_SEED
+    folder: str | Path,
+    n_subjects: int = DEMO_SUBJECTS.default,
+    seed: int = DEMO_SEED,
+    *,
+    test_methods: Sequence[str] = DEMO_TEST_METHODS,
 ) -> Path:
     """Write the demo cohort (values.csv, subjects.csv, planted_lesions.csv, study.toml) to
     ``folder``: a new or empty folder, or one holding an earlier demo (:func:`is_demo_folder`);
-    anything else raises :class:`~cohort.report.destination.OutputExistsError`.
+    anything else raises :class:`~cohort.report.destination.OutputExistsError`. ``test_methods``
+    chooses the test methods (:func:`make_demo`; tests and benchmarks use the one-method demo).
 
     Examples
     --------
@@ -505,9 +510,9 @@ def write_demo(
             f"{str(folder)!r} holds files that are not an earlier cohort demo; give a new folder"
         )
     folder.mkdir(parents=True, exist_ok=True)
-    demo = make_demo(n_subjects, seed)
+    demo = make_demo(n_subjects, seed, test_methods=test_methods)
     demo.values.to_csv(folder / "values.csv", index=False)
     demo.subjects.to_csv(folder / "subjects.csv", index=False)
     demo.lesions.to_csv(folder / "planted_lesions.csv", index=False)
-    (folder / "study.toml").write_text(STUDY_TOML, encoding="utf-8")
+    (folder / "study.toml").write_text(study_toml(test_methods), encoding="utf-8")
     return folder / "study.toml"

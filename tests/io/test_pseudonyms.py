@@ -36,6 +36,8 @@ from cohort.io.pseudonyms import (
 from cohort.io.settings import read_study_file
 from cohort.io.study import load_study
 
+ONE = ("quickmap",)  # the one-method demo: these tests do not depend on the number of methods
+
 KEY = "a-long-enough-secret-for-tests"
 OTHER_KEY = "another-secret-of-enough-length"
 CODE = re.compile(r"^P[0-9a-f]{12}$")
@@ -409,7 +411,7 @@ def test_unreadable_key_file_is_a_study_error(tmp_path, monkeypatch):
 
 
 def test_unreadable_key_file_exits_2_without_traceback(tmp_path, capsys):
-    study_file = write_demo(tmp_path / "demo", n_subjects=6)
+    study_file = write_demo(tmp_path / "demo", n_subjects=6, test_methods=ONE)
     out, folder = str(tmp_path / "r"), str(tmp_path)
     code = main(["run", str(study_file), "--out", out, "--pseudonymize", "--key-file", folder])
     err = capsys.readouterr().err
@@ -418,7 +420,7 @@ def test_unreadable_key_file_exits_2_without_traceback(tmp_path, capsys):
 
 
 def test_code_list_inside_the_report_folder_is_refused(tmp_path, monkeypatch, capsys):
-    study_file = write_demo(tmp_path / "demo", n_subjects=6)
+    study_file = write_demo(tmp_path / "demo", n_subjects=6, test_methods=ONE)
     monkeypatch.setenv(KEY_VARIABLE, KEY)
     out = tmp_path / "report"
     code = main(

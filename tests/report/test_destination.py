@@ -33,6 +33,8 @@ from cohort.report.destination import (
     writing_to,
 )
 
+ONE = ("quickmap",)  # the one-method demo: these tests do not depend on the number of methods
+
 FAST = ["--bootstrap", "0", "--no-figures", "--quiet"]
 
 
@@ -48,7 +50,7 @@ def snapshot(folder: Path) -> dict[str, str]:
 @pytest.fixture
 def study(tmp_path):
     """A small invented demo study in ``tmp_path/study`` and the tree's snapshot."""
-    study_file = write_demo(tmp_path / "study", n_subjects=6)
+    study_file = write_demo(tmp_path / "study", n_subjects=6, test_methods=ONE)
     return study_file
 
 
@@ -86,7 +88,7 @@ def test_out_that_is_or_holds_an_input_or_the_current_folder_is_refused(
 
 
 def test_an_ancestor_of_the_inputs_is_refused_even_with_force(tmp_path, monkeypatch, capsys):
-    study = write_demo(tmp_path / "project" / "study", n_subjects=6)
+    study = write_demo(tmp_path / "project" / "study", n_subjects=6, test_methods=ONE)
     (tmp_path / "elsewhere").mkdir()
     monkeypatch.chdir(tmp_path / "elsewhere")
     before = snapshot(tmp_path)
@@ -419,7 +421,7 @@ def _alive(pid: int) -> bool:
 )
 @pytest.mark.parametrize("signum", [signal.SIGTERM, signal.SIGINT])
 def test_a_signal_ends_the_workers_and_removes_the_partial_folder(tmp_path, signum):
-    study_file = write_demo(tmp_path / "study", n_subjects=24)
+    study_file = write_demo(tmp_path / "study", n_subjects=24, test_methods=ONE)
     out = tmp_path / "out"
     process = subprocess.Popen(
         [
