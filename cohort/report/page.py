@@ -198,7 +198,8 @@ def _agreement_section(analysis: Analysis, figures: Sequence[Any]) -> str:
                     analysis,
                     part,
                     columns=AGREEMENT_VIEW,
-                    caption=f"{p.label}: {method} vs {analysis.study.reference}",
+                    caption=f"{p.label}: {analysis.study.method_label(method)} vs "
+                    f"{analysis.study.method_label(analysis.study.reference)}",
                 )
             )
             if parameter in analysis.options.ratio_parameters:
