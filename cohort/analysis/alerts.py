@@ -100,6 +100,20 @@ def _low_sensitivity(
     return [AgreementWarning("low-sensitivity", p, m, f, ccc, sens, *biases, message)]
 
 
+def bias_shift(
+    parameter: str, b_pos: float, b_neg: float, bias_ratio: float, floor: Mapping[str, float]
+) -> tuple[float, float]:
+    """The shift ``|b_pos - b_neg|`` and the least shift counted as marked,
+    ``max(floor[parameter], (bias_ratio - 1) |b_neg|)`` (see :func:`deceptive_agreement`).
+
+    Examples
+    --------
+    >>> bias_shift("r2star", -8.0, 0.5, 2.0, DEFAULT_MIN_BIAS_DIFFERENCE)
+    (8.5, 5.0)
+    """
+    return abs(b_pos - b_neg), max(floor.get(parameter, 0.0), (bias_ratio - 1.0) * abs(b_neg))
+
+
 def _bias_shift(
     row: Any, ccc: float, biases: tuple[float, float], rule: _Rule
 ) -> list[AgreementWarning]:
@@ -107,8 +121,7 @@ def _bias_shift(
     b_pos, b_neg = biases
     if not (math.isfinite(b_pos) and math.isfinite(b_neg)):
         return []
-    shift = abs(b_pos - b_neg)
-    limit = max(rule.floor.get(p, 0.0), (rule.bias_ratio - 1.0) * abs(b_neg))
+    shift, limit = bias_shift(p, b_pos, b_neg, rule.bias_ratio, rule.floor)
     if shift < limit:
         return []
     message = (

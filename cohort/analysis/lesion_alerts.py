@@ -27,8 +27,8 @@ from dataclasses import dataclass
 
 import pandas as pd
 
-from cohort.analysis.alerts import DEFAULT_MIN_BIAS_DIFFERENCE, AgreementWarning
-from cohort.analysis.verdicts import COLLAPSED, preferred_interval
+from cohort.analysis.alerts import DEFAULT_MIN_BIAS_DIFFERENCE, AgreementWarning, bias_shift
+from cohort.analysis.verdicts import COLLAPSED, preferred_interval, segment_overall
 from cohort.domain.acceptance import DEFAULT_MIN_PPV, Acceptance
 from cohort.domain.wording import percent_level
 
@@ -112,7 +112,7 @@ def missed_lesion_alerts(
     misses at least one in 1 of 1 subjects with such segments
     """
     names = dict(finding_labels or {})
-    rows = detection[detection["level"].eq("segment") & detection["stratum"].eq("all")]
+    rows = segment_overall(detection)
     out: list[LesionAlert] = []
     for method in methods:
         for _, row in rows[rows["method"].astype(str).eq(method)].iterrows():
@@ -202,7 +202,7 @@ def bias_shift_alerts(
     floor = {**DEFAULT_MIN_BIAS_DIFFERENCE, **(min_bias_difference or {})}
     bias = agreement.set_index(["parameter", "method", "stratum"])["bias"]
     bias.index = bias.index.map(lambda k: tuple(str(x) for x in k))
-    rows = detection[detection["level"].eq("segment") & detection["stratum"].eq("all")]
+    rows = segment_overall(detection)
     out: list[LesionAlert] = []
     for method in methods:
         for row in rows[rows["method"].astype(str).eq(method)].itertuples(index=False):
@@ -211,8 +211,7 @@ def bias_shift_alerts(
             b_neg = float(bias.get((p, method, f"finding={f}:negative"), math.nan))
             if not (math.isfinite(b_pos) and math.isfinite(b_neg)):
                 continue
-            shift = abs(b_pos - b_neg)
-            limit = max(floor.get(p, 0.0), (bias_ratio - 1.0) * abs(b_neg))
+            shift, limit = bias_shift(p, b_pos, b_neg, bias_ratio, floor)
             if shift < limit:
                 continue
             message = (

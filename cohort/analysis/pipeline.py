@@ -35,7 +35,7 @@ from cohort.analysis.lesion_alerts import (
 )
 from cohort.analysis.method_differences import method_differences
 from cohort.analysis.swaps import SwapScreen, swap_screen_with
-from cohort.analysis.verdicts import method_verdicts
+from cohort.analysis.verdicts import method_verdicts, segment_overall
 from cohort.domain.options import RunOptions, override_options
 from cohort.domain.problems import problems_frame
 from cohort.domain.thresholds import SwapOptions, thresholds_table
@@ -362,12 +362,8 @@ def _deceptive_text(
 ) -> str:
     """A deceptive-agreement alert of low sensitivity in the words of the missed-lesion
     alert (counts, interval, subjects affected); a bias shift keeps its own words."""
-    rows = detection[
-        detection["method"].astype(str).eq(warning.method)
-        & detection["finding"].astype(str).eq(warning.finding)
-        & detection["level"].eq("segment")
-        & detection["stratum"].eq("all")
-    ]
+    rows = segment_overall(detection, warning.method)
+    rows = rows[rows["finding"].astype(str).eq(warning.finding)]
     if warning.kind != "low-sensitivity" or rows.empty:
         return warning.message
     criterion = options.sensitivity_max

@@ -145,9 +145,18 @@ def _parameter_rows(agreement: pd.DataFrame, acceptance: Acceptance, methods: Se
     return rows
 
 
+def segment_overall(detection: pd.DataFrame, method: str | None = None) -> pd.DataFrame:
+    """The rows of a ``findings_agreement`` table that verdicts, alerts and the overview
+    read: segment level over the whole cohort (stratum ``all``), of one method if given."""
+    keep = detection["level"].eq("segment") & detection["stratum"].eq("all")
+    if method is not None:
+        keep &= detection["method"].astype(str).eq(method)
+    return detection[keep]
+
+
 def _finding_rows(detection: pd.DataFrame, acceptance: Acceptance, methods: Sequence[str]):
     rows = []
-    overall = detection[detection["level"].eq("segment") & detection["stratum"].eq("all")]
+    overall = segment_overall(detection)
     for method in methods:
         for row in overall[overall["method"].astype(str).eq(method)].itertuples(index=False):
             series = pd.Series(row._asdict())

@@ -95,7 +95,7 @@ def _text(row: pd.Series, column: str) -> str:
 
 
 def _group_label(study: Study, group: object) -> str:
-    return str(study.settings.group_labels.get(str(group), group))
+    return study.group_label(group)
 
 
 def _groups_present(study: Study, frame: pd.DataFrame) -> list[str]:

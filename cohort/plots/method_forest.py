@@ -30,6 +30,7 @@ from matplotlib.lines import Line2D
 from matplotlib.patches import Patch
 from matplotlib.ticker import MaxNLocator
 
+from cohort.domain.acceptance import VERDICTS
 from cohort.domain.units import PARAMETERS
 from cohort.plots.style import (
     LINE_COLOUR,
@@ -42,9 +43,6 @@ from cohort.plots.style import (
 
 PANEL_KINDS: tuple[str, ...] = ("limits", "ccc", "sensitivity")
 """What a panel shows: limits of agreement, Lin's CCC, or a sensitivity (0 to 1)."""
-
-VERDICTS: tuple[str, ...] = ("meets", "fails", "inconclusive", "not-assessed")
-"""The verdicts a row may carry (the ``verdict`` column; NaN or absent: none)."""
 
 VERDICT_WORDS: MappingProxyType[str, str] = MappingProxyType(
     {

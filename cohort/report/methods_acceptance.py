@@ -26,6 +26,13 @@ REFERENCES: dict[str, str] = {
 }
 """References cited only by these paragraphs (appended to the methods text's list)."""
 
+CORRECTIONS: dict[str, str] = {
+    "holm": "Holm's step-down procedure [holm1979]",
+    "fdr_bh": "the Benjamini-Hochberg procedure [bh1995]",
+}
+"""The multiple-testing corrections of ``[analysis] correction`` as the methods text names
+them (the group comparisons and the head-to-head paragraph)."""
+
 
 def difference_unit(parameter: str) -> str:
     """The unit of a difference of ``parameter`` (fat fraction: percentage points)."""
@@ -126,8 +133,7 @@ def difference_lines(analysis: Analysis) -> list[str]:
         if baseline
         else "every pair of test methods was compared"
     )
-    correction = {"holm": "Holm's procedure [holm1979]", "fdr_bh": "the Benjamini-Hochberg "
-                  "procedure [bh1995]"}[o.correction]  # fmt: skip
+    correction = CORRECTIONS[o.correction]
     intervals = (
         f"subject cluster bootstrap percentile intervals (B = {o.n_boot}, seed {o.seed}) with "
         "both methods evaluated on the same resampled subjects in every resample"

@@ -14,8 +14,13 @@ from cohort.analysis.pipeline import Analysis
 from cohort.domain.segments import segment_model
 from cohort.domain.units import PARAMETERS
 from cohort.domain.wording import percent_level
+from cohort.report.methods_acceptance import (
+    CORRECTIONS,
+    acceptance_lines,
+    alert_lines,
+    difference_lines,
+)
 from cohort.report.methods_acceptance import REFERENCES as ACCEPTANCE_REFERENCES
-from cohort.report.methods_acceptance import acceptance_lines, alert_lines, difference_lines
 from cohort.stats.regression import PB_WEIGHTED_MAX_N
 
 REFERENCES: dict[str, str] = {
@@ -280,10 +285,7 @@ def _groups_lines(analysis: Analysis) -> list[str]:
     o = analysis.options
     text: list[str] = []
     if "group_comparison" in analysis.tables:
-        correction = {
-            "holm": "Holm's step-down procedure [holm1979]",
-            "fdr_bh": "the Benjamini-Hochberg procedure [bh1995]",
-        }[o.correction]
+        correction = CORRECTIONS[o.correction]
         text += [
             "",
             "## Group comparisons",

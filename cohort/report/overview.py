@@ -14,7 +14,7 @@ import math
 import pandas as pd
 
 from cohort.analysis.pipeline import Analysis
-from cohort.analysis.verdicts import overall_verdict, preferred_interval
+from cohort.analysis.verdicts import overall_verdict, preferred_interval, segment_overall
 from cohort.domain.acceptance import NOT_ASSESSED
 from cohort.domain.units import PARAMETERS
 from cohort.domain.wording import interval_label
@@ -79,7 +79,7 @@ def overview_table(analysis: Analysis) -> pd.DataFrame:
     agreement = analysis.tables["agreement"]
     overall = agreement[agreement["stratum"].astype(str).eq("all")]
     detection = analysis.tables["findings_agreement"]
-    segment = detection[detection["level"].eq("segment") & detection["stratum"].eq("all")]
+    segment = segment_overall(detection)
     verdicts = analysis.tables.get("method_verdicts")
     rows = []
     for method in study.test_methods:
@@ -114,11 +114,7 @@ def _line(analysis: Analysis, method: str) -> str:
     label = study.method_label(method)
     if verdicts is None:
         detection = analysis.tables["findings_agreement"]
-        rows = detection[
-            detection["method"].astype(str).eq(method)
-            & detection["level"].eq("segment")
-            & detection["stratum"].eq("all")
-        ]
+        rows = segment_overall(detection, method)
         shown = "; ".join(
             f"{r.finding}: {int(r.tp)} of {int(r.tp + r.fn)} reference-positive segments shown"
             for r in rows.itertuples()
